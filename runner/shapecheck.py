@@ -1,0 +1,194 @@
+"""Pure checks on proposed tool arguments: one shape for all examples, every stated datum copied, no answer
+leaked; and the JSON Schema inferred from argument objects."""
+
+from __future__ import annotations
+
+import json
+import re
+from typing import Any
+
+_NUM = re.compile(r"-?\d+(?:\.\d+)?")
+_STOP = {
+    "a", "an", "the", "which", "what", "when", "where", "who", "whose", "how", "is", "are", "was", "does", "do",
+    "did", "if", "at", "on", "in", "of", "each", "every", "all", "find", "give", "after", "before", "then", "from",
+    "to", "between", "and", "or", "with", "by", "for", "it", "its", "they", "their", "there", "this", "that",
+    "these", "those", "starting", "counting", "excluding", "including", "not", "no", "yes", "as", "we", "our",
+    "us", "you", "your", "please", "tell", "me", "list", "sort", "put", "order", "first", "last", "next", "one",
+    "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten", "boat", "boats", "crew", "yard",
+    "saltmarsh", "harbour", "co-op", "co-operative", "office", "desk", "today", "tomorrow", "monday", "tuesday",
+    "wednesday", "thursday", "friday", "saturday", "sunday", "january", "february", "march", "april", "may",
+    "june", "july", "august", "september", "october", "november", "december", "iso", "here", "now", "can",
+    "should", "would", "will", "has", "have", "had", "be", "been", "being", "so", "but", "also", "only",
+}
+
+
+def numbers_in(text: str) -> set[float]:
+    """Every number written in the text (so '08:30' gives 8 and 30, '2026-03-02' gives 2026, 3 and 2)."""
+    out = set()
+    for m in _NUM.finditer(text):
+        tok = m.group(0)
+        if tok.startswith("-") and m.start() > 0 and text[m.start() - 1].isalnum():
+            tok = tok[1:]
+        out.add(float(tok))
+    return out
+
+
+def _flatten(value: Any) -> str:
+    return json.dumps(value, ensure_ascii=False)
+
+
+def key_tokens(question: str) -> set[str]:
+    """Names, codes and quoted strings a question states: capitalised words that are not sentence openers
+    or common words, tokens mixing letters and digits, and anything in quotes."""
+    tokens: set[str] = set()
+    for m in re.finditer(r"[\"“']([^\"”']{1,40})[\"”']", question):
+        if " " not in m.group(1).strip() or len(m.group(1)) < 25:
+            tokens.add(m.group(1).strip())
+    for m in re.finditer(r"\b[A-Za-z][A-Za-z0-9]*(?:-[A-Za-z0-9]+)*\b", question):
+        word = m.group(0)
+        if word.lower() in _STOP:
+            continue
+        before = question[: m.start()].rstrip()
+        sentence_start = not before or before[-1] in ".?!:"
+        mixed = bool(re.search(r"\d", word)) and bool(re.search(r"[A-Za-z]", word))
+        if mixed or (word[0].isupper() and not sentence_start) or (word.isupper() and len(word) > 1):
+            tokens.add(word)
+    return tokens
+
+
+def _token_present(token: str, args_text: str, args_numbers: set[float]) -> bool:
+    low = args_text.lower()
+    if token.lower() in low:
+        return True
+    parts = re.findall(r"[A-Za-z]+|\d+", token)
+    return bool(parts) and all((p.lower() in low) if p.isalpha() else (float(p) in args_numbers) for p in parts)
+
+
+def shape_of(value: Any) -> Any:
+    """The structure of a JSON value with the data left out; int and float both count as number."""
+    if isinstance(value, bool):
+        return "boolean"
+    if isinstance(value, (int, float)):
+        return "number"
+    if isinstance(value, str):
+        return "string"
+    if value is None:
+        return "null"
+    if isinstance(value, list):
+        shapes = {json.dumps(shape_of(v), sort_keys=True) for v in value}
+        if len(shapes) > 1:
+            return ["mixed"]
+        return [json.loads(shapes.pop())] if shapes else []
+    if isinstance(value, dict):
+        return {k: shape_of(v) for k, v in sorted(value.items())}
+    return "unknown"
+
+
+def _merge(a: Any, b: Any) -> Any | None:
+    """Two shapes as one (an empty list takes the other's item shape); None when they differ."""
+    if a == b:
+        return a
+    if isinstance(a, list) and isinstance(b, list):
+        if not a or not b:
+            return a or b
+        m = _merge(a[0], b[0])
+        return None if m is None else [m]
+    if isinstance(a, dict) and isinstance(b, dict) and a.keys() == b.keys():
+        out = {}
+        for k in a:
+            m = _merge(a[k], b[k])
+            if m is None:
+                return None
+            out[k] = m
+        return out
+    return None
+
+
+def common_shape(objects: list[Any]) -> Any | None:
+    """The one shape all argument objects share, or None when they differ."""
+    if not objects:
+        return None
+    shape = shape_of(objects[0])
+    for obj in objects[1:]:
+        shape = _merge(shape, shape_of(obj))
+        if shape is None:
+            return None
+    return shape
+
+
+_PATTERNS = [(r"^\d{4}-\d{2}-\d{2}$", "^[0-9]{4}-[0-9]{2}-[0-9]{2}$"), (r"^\d{1,2}:\d{2}$", "^[0-9]{1,2}:[0-9]{2}$")]
+
+
+def _collect(values: list[Any], path: tuple) -> list[Any]:
+    out = values
+    for step in path:
+        nxt = []
+        for v in out:
+            if step == "[]":
+                nxt.extend(v if isinstance(v, list) else [])
+            elif isinstance(v, dict) and step in v:
+                nxt.append(v[step])
+        out = nxt
+    return out
+
+
+def infer_schema(objects: list[dict[str, Any]]) -> dict[str, Any]:
+    """A strict JSON Schema (all keys required, nothing extra) that every argument object satisfies;
+    integers stay integers, and strings that all look like dates or times get that pattern."""
+    shape = common_shape(objects)
+    if not isinstance(shape, dict):
+        raise ValueError("argument objects do not share one object shape")
+
+    def build(sh: Any, path: tuple) -> dict[str, Any]:
+        if isinstance(sh, dict):
+            return {"type": "object", "properties": {k: build(v, path + (k,)) for k, v in sh.items()},
+                    "required": list(sh), "additionalProperties": False}
+        if isinstance(sh, list):
+            return {"type": "array", "items": build(sh[0], path + ("[]",)) if sh else {"type": "string"}}
+        vals = _collect(objects, path)
+        if sh == "number":
+            return {"type": "integer"} if all(isinstance(v, int) for v in vals) else {"type": "number"}
+        if sh == "string":
+            for rx, pattern in _PATTERNS:
+                if vals and all(re.match(rx, v) for v in vals):
+                    return {"type": "string", "pattern": pattern}
+            return {"type": "string"}
+        return {"type": sh}
+
+    return build(shape, ())
+
+
+def shape_problems(questions: list[str], answers: list[Any], objects: list[Any]) -> list[str]:
+    """Everything wrong with a proposed set of argument objects (empty when they pass)."""
+    problems: list[str] = []
+    if len(objects) != len(questions):
+        return [f"expected {len(questions)} argument objects, got {len(objects)}"]
+    if not all(isinstance(o, dict) and o for o in objects):
+        return ["every argument object must be a non-empty JSON object"]
+    if common_shape(objects) is None:
+        problems.append("the argument objects do not share one shape (same keys, same types)")
+    for i, (q, ans, obj) in enumerate(zip(questions, answers, objects), 1):
+        text = _flatten(obj)
+        arg_nums = numbers_in(text)
+        missing_n = sorted(numbers_in(q) - arg_nums)
+        if missing_n:
+            problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in missing_n)} are missing")
+        missing_t = sorted(t for t in key_tokens(q) if not _token_present(t, text, arg_nums))
+        if missing_t:
+            problems.append(f"question {i}: {', '.join(missing_t)} missing")
+        if _leaks(q, ans, text, arg_nums):
+            problems.append(f"question {i}: the answer appears in the arguments")
+    return problems
+
+
+def _leaks(question: str, answer: Any, args_text: str, arg_nums: set[float]) -> bool:
+    if isinstance(answer, bool) or answer is None:
+        return False
+    if isinstance(answer, (int, float)):
+        return float(answer) in arg_nums and float(answer) not in numbers_in(question)
+    text = str(answer).strip()
+    if text.lower() in {"yes", "no", "true", "false"} or len(text) < 2:
+        return False
+    if re.fullmatch(r"-?\d+(\.\d+)?", text):
+        return _leaks(question, float(text), args_text, arg_nums)
+    return text.lower() in args_text.lower() and text.lower() not in question.lower()

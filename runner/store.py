@@ -1,0 +1,112 @@
+"""The tool store: built tools on disk (diskcache under JIGWRIGHT_HOME), by content key and by name."""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Iterator
+
+import diskcache
+
+from . import settings
+from .errors import ToolNotFoundError
+from .tools import Tool
+
+
+class ToolStore:
+    """Content-addressed records (`key:` → tool JSON) plus a name index (`name:` → key)."""
+
+    def __init__(self, path: Path | None = None):
+        self.path = path or settings.store_dir()
+        self.path.mkdir(parents=True, exist_ok=True)
+        self._cache = diskcache.Cache(str(self.path))
+
+    def close(self) -> None:
+        self._cache.close()
+
+    def __enter__(self) -> "ToolStore":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def by_key(self, key: str) -> Tool | None:
+        raw = self._cache.get(f"key:{key}")
+        return Tool.model_validate_json(raw) if raw else None
+
+    def put(self, tool: Tool) -> None:
+        """Store a tool; a verified tool also takes its name (a failed build never replaces a verified one)."""
+        with self._cache.transact():
+            self._cache.set(f"key:{tool.key}", tool.model_dump_json(by_alias=True))
+            current = self.get(tool.name, missing_ok=True)
+            if tool.verified or current is None or not current.verified:
+                self._cache.set(f"name:{tool.name}", tool.key)
+
+    def get(self, name: str, missing_ok: bool = False) -> Tool | None:
+        key = self._cache.get(f"name:{name}")
+        tool = self.by_key(key) if key else None
+        if tool is None and not missing_ok:
+            known = ", ".join(self.names()) or "none yet"
+            raise ToolNotFoundError(f"no tool named '{name}' in the tool store (known: {known})")
+        return tool
+
+    def names(self) -> list[str]:
+        return sorted(k[5:] for k in self._cache.iterkeys() if isinstance(k, str) and k.startswith("name:"))
+
+    def tools(self, verified_only: bool = False) -> Iterator[Tool]:
+        for name in self.names():
+            tool = self.get(name, missing_ok=True)
+            if tool and (tool.verified or not verified_only):
+                yield tool
+
+    def remove(self, name: str) -> Tool:
+        tool = self.get(name)
+        assert tool is not None
+        with self._cache.transact():
+            self._cache.delete(f"name:{name}")
+            self._cache.delete(f"key:{tool.key}")
+        return tool
+
+
+_TEST_FILE = """\"\"\"Verification examples of the tool {name}, exported by Jigwright (runs with plain pytest).\"\"\"
+
+import json
+
+import pytest
+
+from {module} import {entry}
+
+CASES = {cases}
+
+
+@pytest.mark.parametrize("case_id,arguments,expected", CASES)
+def test_{module}(case_id, arguments, expected):
+    assert json.loads(json.dumps({entry}(**json.loads(arguments)))) == json.loads(expected)
+"""
+
+
+def export(tool: Tool, directory: Path) -> list[Path]:
+    """Write the tool as a plain module plus a pytest file of its verification examples, runnable without
+    Jigwright. Both files appear together or not at all (written to a temporary folder, then renamed)."""
+    module = tool.name.replace("-", "_")
+    header = (f'"""{tool.description}\n\nTool {tool.name!r} built by Jigwright (verified: {tool.verified}, '
+              f'held-out score {tool.held_out_score:.2f}).\nWritten by a local model: review before relying on it.'
+              f'\n\nArguments (JSON Schema): {json.dumps(tool.card.schema_)}\n"""\n\n')
+    cases = [(c.id, json.dumps(c.arguments), json.dumps(c.expected)) for c in tool.checks
+             if c.ok and c.arguments is not None]
+    files = {
+        f"{module}.py": header + tool.code.rstrip() + "\n",
+        f"test_{module}.py": _TEST_FILE.format(name=tool.name, module=module, entry=tool.entry,
+                                               cases=json.dumps(cases, indent=4)),
+    }
+    directory.mkdir(parents=True, exist_ok=True)
+    written = []
+    with tempfile.TemporaryDirectory(dir=directory, prefix=".export-") as tmp:
+        for fname, text in files.items():
+            Path(tmp, fname).write_text(text, encoding="utf-8")
+        for fname in files:
+            os.replace(Path(tmp, fname), directory / fname)
+            written.append(directory / fname)
+    return written

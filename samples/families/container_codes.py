@@ -1,0 +1,70 @@
+"""ISO 6346 container codes: compute the check digit of owner code + serial number."""
+
+from __future__ import annotations
+
+import random
+import re
+import string
+
+from ._common import BOATS, pick
+
+NAME = "container_codes"
+DESCRIPTION = (
+    "Given a container's owner code and serial number (4 letters + 6 digits, e.g. ABCU123456), "
+    "answer its ISO 6346 check digit (an integer 0-9)."
+)
+
+_CODE10 = re.compile(r"^[A-Z]{3}[UJZ][0-9]{6}$")
+
+
+def _letter_values() -> dict[str, int]:
+    """A=10, B=12, ... Z=38: consecutive numbers from 10 that skip multiples of 11."""
+    values, v = {}, 10
+    for letter in string.ascii_uppercase:
+        if v % 11 == 0:
+            v += 1
+        values[letter] = v
+        v += 1
+    return values
+
+
+LETTER_VALUES = _letter_values()
+
+
+def weighted_remainder(code10: str) -> int:
+    """Sum of character values times 2**position, modulo 11."""
+    code10 = code10.strip().upper()
+    if not _CODE10.match(code10):
+        raise ValueError(f"not an owner code + serial: {code10!r}")
+    total = sum((LETTER_VALUES[c] if c.isalpha() else int(c)) * 2**i for i, c in enumerate(code10))
+    return total % 11
+
+
+def solve(code: str) -> int:
+    """The check digit of a 10-character owner code + serial (a remainder of 10 gives 0)."""
+    return weighted_remainder(code) % 10
+
+
+def random_code10(rng: random.Random) -> str:
+    """An invented owner code + serial whose remainder is not 10 (so its check digit is unambiguous)."""
+    while True:
+        owner = "".join(rng.choice(string.ascii_uppercase) for _ in range(3)) + rng.choice("UUUUJZ")
+        code = owner + "".join(rng.choice(string.digits) for _ in range(6))
+        if weighted_remainder(code) != 10:
+            return code
+
+
+_QUESTIONS = [
+    "What is the check digit of container code {c}?",
+    "The box off the {boat} reads {c} but its check digit is smudged. Which digit should follow?",
+    "Container {c} needs its ISO 6346 check digit. What is it?",
+    "Work out the check digit for owner code and serial number {c}.",
+    "A tally clerk copied {c} from a container landed by the {boat}. What check digit completes it?",
+]
+
+
+def generate(rng: random.Random) -> dict:
+    code = random_code10(rng)
+    question = pick(rng, _QUESTIONS).format(c=code, boat=rng.choice(BOATS))
+    params = {"code": code}
+    return {"question": question, "answer": solve(**params), "params": params}

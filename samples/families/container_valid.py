@@ -1,0 +1,52 @@
+"""ISO 6346 container codes: is a full 11-character code's check digit right?"""
+
+from __future__ import annotations
+
+import random
+
+from ._common import BOATS, pick
+from .container_codes import random_code10, solve as check_digit
+
+NAME = "container_valid"
+DESCRIPTION = (
+    "Given a full 11-character container code (4 letters, 6 digits, check digit, e.g. ABCU1234560), "
+    "answer \"yes\" if its ISO 6346 check digit is correct and \"no\" otherwise."
+)
+
+
+def solve(code: str) -> str:
+    code = code.strip().upper()
+    if len(code) != 11 or not code[10].isdigit():
+        raise ValueError(f"not an 11-character container code: {code!r}")
+    return "yes" if check_digit(code[:10]) == int(code[10]) else "no"
+
+
+_QUESTIONS = [
+    "Is container code {c} valid?",
+    "The {boat} is landing box {c}. Is its check digit correct (yes or no)?",
+    "Does {c} pass the ISO 6346 check digit test?",
+    "A tally clerk wrote down container {c}. Is that a valid container number?",
+    "Check container {c} from the {boat}: is the code valid?",
+]
+
+
+def _corrupt(rng: random.Random, code11: str) -> str:
+    """A near miss: a wrong last digit, or two neighbouring serial digits swapped."""
+    while True:
+        if rng.random() < 0.6:
+            bad = code11[:10] + str(rng.choice([d for d in range(10) if str(d) != code11[10]]))
+        else:
+            i = rng.randrange(4, 9)
+            bad = code11[:i] + code11[i + 1] + code11[i] + code11[i + 2:]
+        if solve(bad) == "no":
+            return bad
+
+
+def generate(rng: random.Random) -> dict:
+    base = random_code10(rng)
+    code = base + str(check_digit(base))
+    if rng.random() < 0.5:
+        code = _corrupt(rng, code)
+    question = pick(rng, _QUESTIONS).format(c=code, boat=rng.choice(BOATS))
+    params = {"code": code}
+    return {"question": question, "answer": solve(**params), "params": params}

@@ -1,0 +1,52 @@
+"""Shared fixtures: a throw-away JIGWRIGHT_HOME that still sees the real fetched models."""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+from runner import models, settings  # noqa: E402
+
+REAL_HOME = settings.home()
+
+
+def real_model_path(role: str) -> Path:
+    reg = settings.load_registry()
+    spec = models.for_role(reg, role)
+    return REAL_HOME / "models" / spec.file
+
+
+def need_models() -> None:
+    """Real-model tests need the weights: `make test` fetches them first, so missing weights are a failure."""
+    for role in ("builder", "executor"):
+        p = real_model_path(role)
+        if not p.exists():
+            pytest.fail(f"{p} is missing: run `jigwright models fetch` (make test does)")
+
+
+@pytest.fixture
+def tmp_home(tmp_path, monkeypatch) -> Path:
+    """A fresh JIGWRIGHT_HOME whose models/ points at the real models folder (read-only use)."""
+    home = tmp_path / "home"
+    home.mkdir()
+    real_models = REAL_HOME / "models"
+    if real_models.exists():
+        (home / "models").symlink_to(real_models, target_is_directory=True)
+    monkeypatch.setenv("JIGWRIGHT_HOME", str(home))
+    return home
+
+
+@pytest.fixture
+def bare_home(tmp_path, monkeypatch) -> Path:
+    """A fresh, empty JIGWRIGHT_HOME."""
+    home = tmp_path / "bare"
+    home.mkdir()
+    monkeypatch.setenv("JIGWRIGHT_HOME", str(home))
+    return home
