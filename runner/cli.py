@@ -14,7 +14,7 @@ from rich.progress import BarColumn, DownloadColumn, Progress, TextColumn, TimeR
 from rich.table import Table
 
 from . import models, settings
-from .errors import JigwrightError
+from .errors import BuildFailedError, JigwrightError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Jigwright: a builder model writes verified tools from solved examples; "
@@ -150,6 +150,160 @@ def models_prompt(name: str = typer.Argument(..., help="Model name."),
     out.print(f"[bold]{name}[/bold] (loaded in {model.load_usage.wall_seconds:.1f} s): {reply.text.strip()}")
     out.print(f"  {u.prompt_tokens} prompt + {u.completion_tokens} generated tokens, "
               f"{u.cpu_seconds:.2f} CPU s, {u.wall_seconds:.2f} wall s")
+
+
+# ---- build and tools -----------------------------------------------------------------------------------------
+
+tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, show, export, remove built tools.")
+app.add_typer(tools_app, name="tools")
+
+
+def _step_progress() -> tuple[Progress, callable]:
+    from rich.progress import SpinnerColumn, TimeElapsedColumn
+
+    bar = Progress(SpinnerColumn(), TextColumn("[bold]{task.fields[step]:<7}[/bold] {task.description}"),
+                   TimeElapsedColumn(), console=err, transient=False)
+    tasks: dict[str, int] = {}
+
+    def on(step: str, note: str) -> None:
+        for other, tid in tasks.items():
+            if other != step:
+                bar.update(tid, completed=1, total=1)
+        if step not in tasks:
+            tasks[step] = bar.add_task(note, step=step, total=None)
+        bar.update(tasks[step], description=note)
+
+    return bar, on
+
+
+def build_table(report) -> Table:
+    from .build import STEPS
+
+    t = Table(title=f"Build of '{report.tool}'" + (" (from the tool store)" if report.cache_hit else ""))
+    for c in ("step", "tried", "passed", "builder CPU s", "executor CPU s"):
+        t.add_column(c, justify="right" if c != "step" else "left")
+    for name in STEPS:
+        s = report.steps[name]
+        t.add_row(name, str(s.tried), str(s.passed), f"{s.builder_cpu:.1f}", f"{s.executor_cpu:.1f}")
+    t.add_row("total", "", "", f"{report.builder_cpu:.1f}", f"{report.executor_cpu:.1f}", end_section=True)
+    verdict = "[green]verified[/green]" if report.verified else "[red]NOT verified[/red]"
+    t.caption = (f"{verdict}; held-out score {report.held_out_score:.2f} on {report.held_out} examples; "
+                 f"strategy {report.strategy or '-'}; total {report.total_cpu / 60:.1f} CPU min")
+    return t
+
+
+@app.command("build")
+def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL of solved examples (question, answer, optional id)."),
+              name: Optional[str] = typer.Option(None, "--name", help="Tool name (default: family.toml or folder name)."),
+              description: Optional[str] = typer.Option(None, "--description", help="One line: what the questions ask."),
+              samples: int = typer.Option(3, "--samples", min=1, help="Code samples per strategy."),
+              shape_samples: int = typer.Option(4, "--shape-samples", min=1, help="Argument designs to sample."),
+              rounds: int = typer.Option(1, "--rounds", min=0, help="Repair rounds per failing candidate."),
+              draft_examples: int = typer.Option(3, "--draft-examples", min=1, help="Examples shown to the builder; the rest are held out."),
+              budget_cpu_min: Optional[float] = typer.Option(None, "--budget-cpu-min", help="Stop sampling after this many CPU minutes."),
+              seed: int = typer.Option(0, "--seed"),
+              builder_name: Optional[str] = typer.Option(None, "--builder", help="Builder model name."),
+              executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
+              force: bool = typer.Option(False, "--force", help="Build again even if the tool store has this build."),
+              as_json: bool = typer.Option(False, "--json", help="The build report as JSON on stdout.")) -> None:
+    """Turn solved examples into a tool verified on held-out examples, and keep it in the tool store."""
+    from . import build as builder_mod
+    from .llm import open_model
+    from .sandbox import Sandbox
+    from .store import ToolStore
+
+    family = builder_mod.load_family(family_file, name, description)
+    settings_ = builder_mod.BuildSettings(draft_samples=samples, shape_samples=shape_samples, repair_rounds=rounds,
+                                          draft_examples=draft_examples, budget_cpu_minutes=budget_cpu_min, seed=seed)
+    caution()
+    bmodel = open_model("builder", builder_name, verbose=STATE["verbose"])
+    emodel = open_model("executor", executor_name, verbose=STATE["verbose"])
+    bar, on = _step_progress()
+    with ToolStore() as store, Sandbox() as sandbox, bar:
+        tool, report = builder_mod.build(family, builder=bmodel, executor=emodel, sandbox=sandbox, store=store,
+                                         settings=settings_, builder_sha=bmodel.spec.sha256,
+                                         executor_sha=emodel.spec.sha256, force=force, progress=on)
+    if as_json:
+        out.print_json(json.dumps(report.summary()))
+    else:
+        out.print(build_table(report))
+        if not report.verified:
+            for f in report.failures[-5:]:
+                out.print(f"  - {f}", highlight=False)
+    if not report.verified:
+        raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
+                               + (" (an unverified best attempt is kept: `jigwright tools show " + family.name + "`)"
+                                  if tool else ""))
+
+
+@tools_app.command("list")
+def tools_list(as_json: bool = typer.Option(False, "--json")) -> None:
+    """Tools in the tool store."""
+    from .store import ToolStore
+
+    with ToolStore() as store:
+        tools = list(store.tools())
+    if as_json:
+        out.print_json(json.dumps([{"name": t.name, "verified": t.verified, "held_out_score": t.held_out_score,
+                                    "description": t.description, "key": t.key} for t in tools]))
+        return
+    t = Table(title="Tool store")
+    for c in ("name", "verified", "held-out", "strategy", "built", "description"):
+        t.add_column(c)
+    for tool in tools:
+        t.add_row(tool.name, "yes" if tool.verified else "[red]no[/red]", f"{tool.held_out_score:.2f}",
+                  tool.provenance.strategy, tool.provenance.created[:16], tool.description[:60])
+    out.print(t)
+
+
+@tools_app.command("show")
+def tools_show(name: str, as_json: bool = typer.Option(False, "--json")) -> None:
+    """A tool's code, argument schema, usage card and verification results."""
+    from rich.syntax import Syntax
+
+    from .store import ToolStore
+
+    with ToolStore() as store:
+        tool = store.get(name)
+    assert tool is not None
+    if as_json:
+        out.print_json(tool.model_dump_json(by_alias=True))
+        return
+    out.print(f"[bold]{tool.name}[/bold] — {tool.description}")
+    out.print(f"verified: {tool.verified}, held-out score {tool.held_out_score:.2f}, strategy {tool.provenance.strategy}, "
+              f"builder {tool.provenance.builder_model}, executor {tool.provenance.executor_model}, built {tool.provenance.created}")
+    out.print(Syntax(tool.code, "python", line_numbers=True))
+    out.print("arguments (JSON Schema):")
+    out.print_json(json.dumps(tool.card.schema_))
+    t = Table(title="verification")
+    for c in ("id", "split", "expected", "got", "ok", "error"):
+        t.add_column(c)
+    for c in tool.checks:
+        t.add_row(c.id, c.split, str(c.expected), str(c.got), "yes" if c.ok else "[red]no[/red]", c.error or "")
+    out.print(t)
+    caution()
+
+
+@tools_app.command("export")
+def tools_export(name: str, directory: Path) -> None:
+    """Write the tool as a plain Python module plus a pytest file of its verification examples."""
+    from .store import ToolStore, export
+
+    with ToolStore() as store:
+        tool = store.get(name)
+    assert tool is not None
+    for p in export(tool, directory):
+        out.print(f"wrote {p}")
+
+
+@tools_app.command("rm")
+def tools_rm(name: str) -> None:
+    """Remove a tool from the tool store."""
+    from .store import ToolStore
+
+    with ToolStore() as store:
+        store.remove(name)
+    out.print(f"removed '{name}'")
 
 
 @app.command("doctor")

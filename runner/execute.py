@@ -108,5 +108,69 @@ def extract_answer(text: str) -> str:
     return lines[-1] if lines else ""
 
 
+# ---- calling the tool, with one retry; and the direct answer (the fallback) ------------------------------
+
+DIRECT_TEMPLATE = "direct_answer.j2"
+
+
+class ToolAnswer(BaseModel):
+    """The outcome of answering one question with one tool: the value (JSON as the tool returned it) or why
+    not, the arguments used, how many fill attempts it took, and the cost split into model and tool."""
+
+    ok: bool
+    value: Any = None
+    arguments: dict[str, Any] | None = None
+    error: str | None = None
+    attempts: int = 0
+    usage: Usage = Usage()
+    tool_cpu_seconds: float = 0.0
+    tool_wall_seconds: float = 0.0
+
+
+def answer_with_tool(model: ChatModel, tool: Tool, question: str, sandbox: Any, *, seed: int,
+                     retries: int = 1, retry_temperature: float = 0.3) -> ToolAnswer:
+    """Fill the arguments (greedy), run the tool in the sandbox; on a schema failure or a tool error, try
+    again with the next seed at `retry_temperature`, up to `retries` more times."""
+    usage, tool_cpu, tool_wall, error = Usage(), 0.0, 0.0, None
+    arguments: dict[str, Any] | None = None
+    for attempt in range(retries + 1):
+        filled = fill_arguments(model, tool.card, question, seed=seed + attempt,
+                                temperature=0.0 if attempt == 0 else retry_temperature)
+        usage = usage + filled.usage
+        if filled.arguments is None:
+            error = f"attempt {attempt + 1}: {filled.error}"
+            continue
+        arguments = filled.arguments
+        result = sandbox.run(tool.code, arguments, entry=tool.entry)
+        tool_cpu += result.cpu_seconds
+        tool_wall += result.wall_seconds
+        if result.ok and result.value is not None:
+            return ToolAnswer(ok=True, value=result.value, arguments=arguments, attempts=attempt + 1, usage=usage,
+                              tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall)
+        why = f"{result.error_kind}: {result.message}" if not result.ok else "the tool returned nothing"
+        error = f"attempt {attempt + 1}: tool {tool.name} failed ({why})"
+    return ToolAnswer(ok=False, arguments=arguments, error=error, attempts=retries + 1, usage=usage,
+                      tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall)
+
+
+class DirectAnswer(BaseModel):
+    """A model's own answer to a question, without a tool (not tool-backed)."""
+
+    answer: str
+    text: str
+    usage: Usage = Usage()
+
+
+def direct_messages(question: str) -> list[Message]:
+    return [{"role": "system", "content": prompts.render(DIRECT_TEMPLATE)}, {"role": "user", "content": question}]
+
+
+def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = 192) -> DirectAnswer:
+    """Ask `model` for a short worked answer ending in 'Answer: ...' and take that last part."""
+    reply = model.chat(direct_messages(question), seed=seed, temperature=0.0, max_tokens=max_tokens)
+    return DirectAnswer(answer=extract_answer(reply.text), text=reply.text, usage=reply.usage)
+
+
 __all__ = ["Filled", "fill_messages", "fill_arguments", "schema_problem", "normalise", "answers_match",
-           "extract_answer", "token_budget", "Tool"]
+           "extract_answer", "token_budget", "Tool", "ToolAnswer", "answer_with_tool", "DirectAnswer",
+           "direct_messages", "answer_directly"]

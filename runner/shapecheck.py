@@ -80,7 +80,7 @@ def shape_of(value: Any) -> Any:
             return ["mixed"]
         return [json.loads(shapes.pop())] if shapes else []
     if isinstance(value, dict):
-        return {k: shape_of(v) for k, v in sorted(value.items())}
+        return {k: shape_of(v) for k, v in value.items()}
     return "unknown"
 
 

@@ -1,0 +1,498 @@
+"""The builder pipeline: shape → draft → repair → verify → card, with a report of what each step cost.
+
+A small builder succeeds by structure: each step is small, several samples are drawn, every candidate is checked
+mechanically, failures go back with exact feedback, and only a tool that verifies end to end on held-out
+examples (executor fills the arguments, the tool computes) is stored as verified.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+from pydantic import BaseModel, Field, ValidationError
+
+from . import prompts, shapecheck
+from .errors import InputError
+from .execute import Filled, answers_match, fill_arguments, normalise
+from .llm import ChatModel, Message
+from .meter import Stopwatch, Usage
+from .store import ToolStore
+from .tools import Card, Demo, ExampleCheck, Provenance, Tool, slug
+
+STEPS = ("shape", "draft", "repair", "verify", "card")
+STRATEGIES = ("direct", "search", "permute", "simulate")
+TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
+             "strategy_direct.j2", "strategy_search.j2", "strategy_permute.j2", "strategy_simulate.j2",
+             "repair.j2", "executor_fill.j2")
+SEARCH_SOLVE = "\n\ndef solve(**arguments):\n    x = 0\n    while not holds(x, **arguments):\n        x += 1\n    return x\n"
+
+
+# ---- input -------------------------------------------------------------------------------------------------
+
+class Example(BaseModel):
+    """One solved question of a family."""
+
+    id: str
+    question: str
+    answer: Any
+
+
+class Family(BaseModel):
+    name: str
+    description: str = ""
+    examples: list[Example]
+    source: str
+
+
+def load_family(path: Path, name: str | None = None, description: str | None = None) -> Family:
+    """Read a family file (JSONL: question, answer, optional id); a family.toml beside it supplies the name
+    and description unless given. Bad lines are an InputError naming file and line."""
+    try:
+        lines = path.read_text(encoding="utf-8").splitlines()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror}") from exc
+    examples: list[Example] = []
+    seen: set[str] = set()
+    for i, line in enumerate(lines, 1):
+        if not line.strip():
+            continue
+        try:
+            raw = json.loads(line)
+        except ValueError as exc:
+            raise InputError(f"{path}:{i}: not valid JSON: {exc.msg}") from exc
+        if not isinstance(raw, dict):
+            raise InputError(f"{path}:{i}: expected an object with 'question' and 'answer'")
+        for key in ("question", "answer"):
+            if key not in raw:
+                raise InputError(f"{path}:{i}: missing '{key}'")
+        if not isinstance(raw["question"], str) or not raw["question"].strip():
+            raise InputError(f"{path}:{i}: 'question' must be non-empty text")
+        ex_id = str(raw.get("id", f"line-{i}"))
+        if ex_id in seen:
+            raise InputError(f"{path}:{i}: duplicate id '{ex_id}'")
+        seen.add(ex_id)
+        examples.append(Example(id=ex_id, question=raw["question"].strip(), answer=raw["answer"]))
+    if len(examples) < 2:
+        raise InputError(f"{path}: a family needs at least 2 solved examples (found {len(examples)})")
+    about: dict[str, Any] = {}
+    toml = path.parent / "family.toml"
+    if toml.exists():
+        try:
+            about = tomllib.loads(toml.read_text(encoding="utf-8"))
+        except tomllib.TOMLDecodeError as exc:
+            raise InputError(f"{toml}: not valid TOML: {exc}") from exc
+    default_name = path.parent.name if path.stem in ("examples", "family") else path.stem
+    return Family(name=slug(name or about.get("name") or default_name),
+                  description=description or about.get("description", ""), examples=examples, source=str(path))
+
+
+# ---- settings and report ----------------------------------------------------------------------------------
+
+class BuildSettings(BaseModel):
+    """Knobs of one build; all of them are part of the cache key."""
+
+    draft_examples: int = 3
+    shape_samples: int = 4
+    draft_samples: int = 3
+    repair_rounds: int = 1
+    repairs_per_strategy: int = 2
+    temperature: float = 0.7
+    seed: int = 0
+    strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
+    min_score: float = 1.0
+    budget_cpu_minutes: float | None = None
+
+
+class StepCost(BaseModel):
+    tried: int = 0
+    passed: int = 0
+    builder_cpu: float = 0.0
+    executor_cpu: float = 0.0
+    wall: float = 0.0
+    builder_tokens: int = 0
+
+
+class BuildReport(BaseModel):
+    family: str
+    tool: str
+    key: str
+    cache_hit: bool = False
+    verified: bool = False
+    held_out_score: float = 0.0
+    held_out: int = 0
+    strategy: str = ""
+    steps: dict[str, StepCost] = Field(default_factory=lambda: {s: StepCost() for s in STEPS})
+    stopped: str = ""
+    failures: list[str] = Field(default_factory=list)
+
+    @property
+    def builder_cpu(self) -> float:
+        return sum(s.builder_cpu for s in self.steps.values())
+
+    @property
+    def executor_cpu(self) -> float:
+        return sum(s.executor_cpu for s in self.steps.values())
+
+    @property
+    def total_cpu(self) -> float:
+        return self.builder_cpu + self.executor_cpu
+
+    def summary(self) -> dict[str, Any]:
+        data = self.model_dump()
+        data.update(builder_cpu=self.builder_cpu, executor_cpu=self.executor_cpu, total_cpu=self.total_cpu)
+        return data
+
+
+Progress = Callable[[str, str], None]  # (step, note)
+
+
+# ---- candidates ---------------------------------------------------------------------------------------------
+
+@dataclass
+class ShapeCandidate:
+    objects: list[dict[str, Any]]
+    problems: list[str]
+    schema: dict[str, Any] | None = None
+
+
+@dataclass
+class Candidate:
+    strategy: str
+    code: str
+    messages: list[Message]
+    reply: str
+    draft_ok: int = 0
+    feedback: str = ""
+    checks: list[ExampleCheck] = field(default_factory=list)
+    score: float = -1.0
+
+    @property
+    def sort_key(self) -> tuple:
+        return (-self.score, -self.draft_ok, len(self.code))
+
+
+def extract_code(text: str) -> str:
+    """The Python code in a reply: the ```python blocks joined, else the whole reply."""
+    blocks = re.findall(r"```(?:python|py)?\s*\n(.*?)```", text, flags=re.DOTALL)
+    if not blocks:
+        m = re.search(r"```(?:python|py)?\s*\n(.*)", text, flags=re.DOTALL)
+        blocks = [m.group(1)] if m else [text]
+    return "\n\n".join(b.strip("\n") for b in blocks).strip() + "\n"
+
+
+def _signature(schema: dict[str, Any]) -> str:
+    return ", ".join(schema.get("properties", {}))
+
+
+def _answer_type(answers: list[Any]) -> str:
+    if all(isinstance(a, bool) for a in answers):
+        return "True or False"
+    if all(isinstance(a, int) and not isinstance(a, bool) for a in answers):
+        return "an int"
+    if all(isinstance(a, str) for a in answers):
+        if all(a.lower() in ("yes", "no") for a in answers):
+            return 'the string "yes" or "no"'
+        if all(re.fullmatch(r"\d{2}:\d{2}", a) for a in answers):
+            return 'a string "HH:MM" with two-digit hours and minutes'
+        return "a str"
+    return "the same JSON type as the examples"
+
+
+def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answers: list[Any]) -> list[str]:
+    """Strategies that fit the data: search needs whole-number answers; permute and simulate need a list."""
+    has_list = any(isinstance(v, list) and len(v) >= 2 for o in objects for v in o.values())
+    ints = all(isinstance(a, int) and not isinstance(a, bool) and a >= 0 for a in answers)
+    ok = {"direct": True, "search": ints, "permute": has_list, "simulate": has_list}
+    return [s for s in wanted if ok.get(s, False)]
+
+
+def build_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
+    payload = {"examples": [e.model_dump() for e in family.examples], "description": family.description,
+               "builder": builder_sha, "executor": executor_sha, "templates": prompts.template_hash(*TEMPLATES),
+               "settings": settings.model_dump()}
+    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
+
+
+# ---- the pipeline -------------------------------------------------------------------------------------------
+
+class BudgetExhausted(Exception):
+    pass
+
+
+class Builder:
+    """One build of one family. Models, sandbox and store are given, so tests can pass doubles of the models."""
+
+    def __init__(self, family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: Any,
+                 settings: BuildSettings, builder_sha: str = "", executor_sha: str = "",
+                 progress: Progress | None = None):
+        self.family, self.builder, self.executor, self.sandbox = family, builder, executor, sandbox
+        self.settings = settings
+        self.builder_sha, self.executor_sha = builder_sha, executor_sha
+        self.progress = progress or (lambda step, note: None)
+        n = min(settings.draft_examples, len(family.examples) - 1)
+        self.drafting = family.examples[:n]
+        self.held_out = family.examples[n:]
+        self.key = build_key(family, builder_sha, executor_sha, settings)
+        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out))
+        self._seed = settings.seed
+
+    # -- accounting
+    def _next_seed(self) -> int:
+        self._seed += 1
+        return self._seed
+
+    def _charge(self, step: str, usage: Usage, who: str) -> None:
+        cost = self.report.steps[step]
+        if who == "builder":
+            cost.builder_cpu += usage.cpu_seconds
+            cost.builder_tokens += usage.prompt_tokens + usage.completion_tokens
+        else:
+            cost.executor_cpu += usage.cpu_seconds
+        cost.wall += usage.wall_seconds
+        budget = self.settings.budget_cpu_minutes
+        if budget is not None and self.report.total_cpu > budget * 60:
+            raise BudgetExhausted(f"CPU budget of {budget:g} min used up during {step}")
+
+    def _ask_builder(self, step: str, messages: list[Message], *, temperature: float, max_tokens: int,
+                     schema: dict | None = None) -> str:
+        reply = self.builder.chat(messages, seed=self._next_seed(), temperature=temperature,
+                                  max_tokens=max_tokens, schema=schema)
+        self._charge(step, reply.usage, "builder")
+        return reply.text
+
+    # -- shape
+    def shape_messages(self) -> list[Message]:
+        questions = [e.question for e in self.drafting]
+        return [
+            {"role": "system", "content": prompts.render("shape_system.j2")},
+            {"role": "user", "content": prompts.render("shape_demo.j2", part="user")},
+            {"role": "assistant", "content": prompts.render("shape_demo.j2", part="assistant")},
+            {"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
+                                                       questions=questions)},
+        ]
+
+    def shapes(self) -> Iterator[ShapeCandidate]:
+        """Sampled argument designs, each checked mechanically; yields the ones that pass, best first."""
+        n = len(self.drafting)
+        schema = {"type": "object", "properties": {"arguments": {
+            "type": "array", "items": {"type": "object"}, "minItems": n, "maxItems": n}},
+            "required": ["arguments"], "additionalProperties": False}
+        msgs = self.shape_messages()
+        budget = 60 + sum(len(e.question) for e in self.drafting)
+        seen: set[str] = set()
+        questions = [e.question for e in self.drafting]
+        answers = [e.answer for e in self.drafting]
+        for i in range(self.settings.shape_samples):
+            self.progress("shape", f"sample {i + 1}/{self.settings.shape_samples}")
+            temp = 0.2 if i == 0 else self.settings.temperature
+            text = self._ask_builder("shape", msgs, temperature=temp, max_tokens=budget, schema=schema)
+            self.report.steps["shape"].tried += 1
+            try:
+                objects = json.loads(text)["arguments"]
+            except (ValueError, KeyError, TypeError):
+                self.report.failures.append(f"shape {i + 1}: reply is not the expected JSON")
+                continue
+            problems = shapecheck.shape_problems(questions, answers, objects)
+            if problems:
+                self.report.failures.append(f"shape {i + 1}: " + "; ".join(problems[:3]))
+                continue
+            sig = json.dumps(objects, sort_keys=True)
+            if sig in seen:
+                continue
+            seen.add(sig)
+            self.report.steps["shape"].passed += 1
+            yield ShapeCandidate(objects=objects, problems=[], schema=shapecheck.infer_schema(objects))
+
+    # -- draft and repair
+    def draft_messages(self, shape: ShapeCandidate, strategy: str) -> list[Message]:
+        examples = [{"question": e.question, "arguments": a, "answer_repr": repr(e.answer)}
+                    for e, a in zip(self.drafting, shape.objects)]
+        assert shape.schema is not None
+        user = prompts.render("draft.j2", description=self.family.description, schema=shape.schema,
+                              examples=examples, strategy=strategy, signature=_signature(shape.schema),
+                              answer_type=_answer_type([e.answer for e in self.drafting]))
+        return [{"role": "system", "content": prompts.render("draft_system.j2")},
+                {"role": "user", "content": user}]
+
+    def assemble(self, strategy: str, reply: str) -> str:
+        code = extract_code(reply)
+        if strategy == "search":
+            code = code.rstrip() + "\n" + SEARCH_SOLVE
+        return code
+
+    def check_on_drafting(self, cand: Candidate, shape: ShapeCandidate) -> None:
+        """Run the candidate on the drafting examples; keep the first failure as exact feedback."""
+        cand.draft_ok, cand.feedback = 0, ""
+        for ex, args in zip(self.drafting, shape.objects):
+            res = self.sandbox.run(cand.code, args)
+            call = f"solve(**{json.dumps(args, ensure_ascii=False)})"
+            if res.status != "ok":
+                fb = f"{call} failed: {res.message}"
+                if res.error_kind == "timeout":
+                    fb += " (it ran too long: make sure every loop ends)"
+            elif not answers_match(ex.answer, res.value):
+                fb = f"{call} must return {ex.answer!r} but returned {res.value!r}."
+            else:
+                cand.draft_ok += 1
+                continue
+            cand.feedback = cand.feedback or fb
+
+    def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
+        msgs = self.draft_messages(shape, strategy)
+        out = []
+        for i in range(self.settings.draft_samples):
+            self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}")
+            temp = 0.2 if i == 0 else self.settings.temperature
+            text = self._ask_builder("draft", msgs, temperature=temp, max_tokens=400)
+            cand = Candidate(strategy=strategy, code=self.assemble(strategy, text), messages=msgs, reply=text)
+            self.check_on_drafting(cand, shape)
+            self.report.steps["draft"].tried += 1
+            if cand.draft_ok == len(self.drafting):
+                self.report.steps["draft"].passed += 1
+            out.append(cand)
+        return out
+
+    def repair(self, cand: Candidate, shape: ShapeCandidate) -> Candidate:
+        fixed = cand
+        for r in range(self.settings.repair_rounds):
+            self.progress("repair", f"{cand.strategy} round {r + 1}/{self.settings.repair_rounds}")
+            msgs = fixed.messages + [{"role": "assistant", "content": fixed.reply},
+                                     {"role": "user", "content": prompts.render("repair.j2", feedback=fixed.feedback)}]
+            text = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
+            fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, text), messages=msgs,
+                              reply=text)
+            self.check_on_drafting(fixed, shape)
+            self.report.steps["repair"].tried += 1
+            if fixed.draft_ok == len(self.drafting):
+                self.report.steps["repair"].passed += 1
+                break
+        return fixed
+
+    # -- verify
+    def card(self, shape: ShapeCandidate) -> Card:
+        assert shape.schema is not None
+        return Card(name=self.family.name, description=self.family.description or self.family.name,
+                    schema=shape.schema, demos=[Demo(question=e.question, arguments=a)
+                                                for e, a in zip(self.drafting, shape.objects)])
+
+    def fill_held_out(self, card: Card) -> list[Filled]:
+        fills = []
+        for i, ex in enumerate(self.held_out):
+            self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}")
+            filled = fill_arguments(self.executor, card, ex.question, seed=self.settings.seed)
+            self._charge("verify", filled.usage, "executor")
+            fills.append(filled)
+        return fills
+
+    def verify(self, cand: Candidate, shape: ShapeCandidate, fills: list[Filled]) -> None:
+        checks = [ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
+                               got=e.answer, ok=True) for e, a in zip(self.drafting, shape.objects)]
+        ok = 0
+        for ex, filled in zip(self.held_out, fills):
+            if filled.arguments is None:
+                checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+                                           ok=False, error=filled.error))
+                continue
+            res = self.sandbox.run(cand.code, filled.arguments)
+            good = res.status == "ok" and answers_match(ex.answer, res.value)
+            ok += good
+            checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+                                       arguments=filled.arguments, got=res.value if res.status == "ok" else None,
+                                       ok=good, error=None if res.status == "ok" else res.message))
+        self.report.steps["verify"].tried += 1
+        cand.checks = checks
+        cand.score = ok / len(self.held_out) if self.held_out else 0.0
+        if cand.score >= self.settings.min_score:
+            self.report.steps["verify"].passed += 1
+
+    # -- the whole build
+    def run(self) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
+        best: tuple[Candidate, ShapeCandidate, Card] | None = None
+        try:
+            for shape in self.shapes():
+                card = self.card(shape)
+                fills: list[Filled] | None = None
+                for strategy in applicable_strategies(self.settings.strategies, shape.objects,
+                                                      [e.answer for e in self.drafting]):
+                    with Stopwatch() as sw:
+                        cands = self.draft(shape, strategy)
+                        failing = sorted((c for c in cands if c.draft_ok < len(self.drafting)),
+                                         key=lambda c: (-c.draft_ok, len(c.code)))
+                        passing = [c for c in cands if c.draft_ok == len(self.drafting)]
+                        if not passing:
+                            for c in failing[: self.settings.repairs_per_strategy]:
+                                fixed = self.repair(c, shape)
+                                if fixed.draft_ok == len(self.drafting):
+                                    passing.append(fixed)
+                                    break
+                    if not passing:
+                        self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback}"
+                                                    if failing else f"{strategy}: no candidates")
+                        continue
+                    if fills is None:
+                        fills = self.fill_held_out(card)
+                    for c in _dedupe(passing):
+                        self.verify(c, shape, fills)
+                        if best is None or c.sort_key < best[0].sort_key:
+                            best = (c, shape, card)
+                    if best and best[0].score >= self.settings.min_score:
+                        return best
+                    if best:
+                        bad = [ch for ch in best[0].checks if not ch.ok]
+                        self.report.failures.append(
+                            f"{strategy}: held-out {best[0].score:.2f}; e.g. {bad[0].id}: expected "
+                            f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip() if bad else "")
+        except BudgetExhausted as exc:
+            self.report.stopped = str(exc)
+        return best if best else (None, None, None)
+
+
+def _dedupe(cands: list[Candidate]) -> list[Candidate]:
+    seen, out = set(), []
+    for c in cands:
+        if c.code not in seen:
+            seen.add(c.code)
+            out.append(c)
+    return out
+
+
+def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: Any, store: ToolStore,
+          settings: BuildSettings, builder_sha: str = "", executor_sha: str = "", force: bool = False,
+          progress: Progress | None = None) -> tuple[Tool | None, BuildReport]:
+    """Build (or fetch from the tool store) the tool for a family; a failed build is stored unverified."""
+    b = Builder(family, builder=builder, executor=executor, sandbox=sandbox, settings=settings,
+                builder_sha=builder_sha, executor_sha=executor_sha, progress=progress)
+    if not force:
+        cached = store.by_key(b.key)
+        if cached is not None:
+            report = BuildReport.model_validate(cached.report)
+            report.cache_hit = True
+            return cached, report
+    with Stopwatch() as total:
+        cand, shape, card = b.run()
+    report = b.report
+    if cand is None or shape is None or card is None:
+        report.verified = False
+        return None, report
+    report.verified = cand.score >= settings.min_score
+    report.held_out_score = cand.score
+    report.strategy = cand.strategy
+    report.steps["card"].tried = report.steps["card"].passed = 1
+    tool = Tool(key=b.key, name=family.name, description=card.description, code=cand.code, card=card,
+                verified=report.verified, held_out_score=cand.score, checks=cand.checks,
+                provenance=Provenance(builder_model=getattr(builder, "name", "?"), builder_sha256=builder_sha,
+                                      executor_model=getattr(executor, "name", "?"), executor_sha256=executor_sha,
+                                      template_hashes=prompts.template_hash(*TEMPLATES),
+                                      settings=settings.model_dump(), family_file=family.source,
+                                      examples_sha256=hashlib.sha256(json.dumps(
+                                          [e.model_dump() for e in family.examples], sort_keys=True
+                                      ).encode()).hexdigest(), strategy=cand.strategy),
+                report=report.model_dump())
+    store.put(tool)
+    return tool, report
