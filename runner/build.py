@@ -342,6 +342,8 @@ class Builder:
                 cand.draft_ok += 1
                 continue
             cand.feedback = cand.feedback or fb
+            if res.status != "ok" and res.error_kind == "timeout":
+                break
 
     def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
         msgs = self.draft_messages(shape, strategy)

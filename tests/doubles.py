@@ -1,0 +1,85 @@
+"""Test doubles of the model backend, for control-flow tests of the builder, router and run loop.
+
+`ScriptedModel` implements `ChatModel.chat` and replies from a script: a list of texts used in order, or a
+callable that decides per call. It keeps every call (messages and keywords) for assertions, and imitates
+llama.cpp's prompt cache: a prompt's "tokens" are its words, and the tokens it shares as a prefix with the
+previous call's prompt count as cached."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+from runner.llm import Message, Reply
+from runner.meter import Usage
+
+Script = list[str] | Callable[..., "str | Reply"]
+
+
+@dataclass
+class Call:
+    messages: list[Message]
+    seed: int
+    temperature: float
+    max_tokens: int
+    stop: list[str] | None
+    schema: dict | None
+
+    @property
+    def system(self) -> str:
+        return next((m["content"] for m in self.messages if m["role"] == "system"), "")
+
+    @property
+    def last_user(self) -> str:
+        return next((m["content"] for m in reversed(self.messages) if m["role"] == "user"), "")
+
+
+def prompt_tokens(messages: list[Message]) -> list[str]:
+    out: list[str] = []
+    for m in messages:
+        out.append(f"<{m['role']}>")
+        out.extend(m["content"].split())
+    return out
+
+
+@dataclass
+class ScriptedModel:
+    """A ChatModel that answers from a script. A callable script is called as
+    `script(messages, seed=..., temperature=..., max_tokens=..., stop=..., schema=...)` and returns the reply
+    text (or a whole Reply); it may raise to simulate a failure or an interrupt."""
+
+    name: str
+    replies: Script
+    cpu_per_prompt_token: float = 0.001
+    cpu_per_completion_token: float = 0.004
+    calls: list[Call] = field(default_factory=list)
+    _last_prompt: list[str] = field(default_factory=list)
+
+    def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
+             stop: list[str] | None = None, schema: dict | None = None) -> Reply:
+        self.calls.append(Call(list(messages), seed, temperature, max_tokens, stop, schema))
+        if callable(self.replies):
+            out = self.replies(messages, seed=seed, temperature=temperature, max_tokens=max_tokens, stop=stop,
+                               schema=schema)
+        else:
+            if not self.replies:
+                raise AssertionError(f"{self.name}: the script has no reply left for call {len(self.calls)}")
+            out = self.replies.pop(0)
+        if isinstance(out, Reply):
+            return out
+        tokens = prompt_tokens(messages)
+        cached = 0
+        for a, b in zip(tokens, self._last_prompt):
+            if a != b:
+                break
+            cached += 1
+        cached = min(cached, max(len(tokens) - 1, 0))
+        self._last_prompt = tokens
+        completion = max(1, len(out.split()))
+        cpu = (len(tokens) - cached) * self.cpu_per_prompt_token + completion * self.cpu_per_completion_token
+        return Reply(text=out, usage=Usage(prompt_tokens=len(tokens), completion_tokens=completion,
+                                           cached_tokens=cached, wall_seconds=cpu / 2, cpu_seconds=cpu))
+
+    def routed(self) -> list[Call]:
+        """The calls that were routing calls (their schema is a string enum)."""
+        return [c for c in self.calls if c.schema and c.schema.get("type") == "string" and "enum" in c.schema]

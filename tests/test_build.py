@@ -1,0 +1,197 @@
+"""The builder pipeline's control flow and failure paths, with a scripted stand-in for both models and the real
+sandbox; plus family-file errors and export. The real-model build is in test_build_real.py."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from doubles import ScriptedModel
+from runner import build as B
+from runner.errors import InputError
+from runner.sandbox import Limits, Sandbox
+from runner.store import ToolStore, export
+
+# A toy family for control-flow tests only (invented; the demo families live in samples/).
+FEES = [
+    ("The Puffin is 12 metres long and uses the slipway at 3 coins per metre. What is the fee?", 36,
+     {"boat": "Puffin", "length": 12, "rate": 3}),
+    ("Slipway fee for the Gannet: 9 metres at 4 coins a metre?", 36, {"boat": "Gannet", "length": 9, "rate": 4}),
+    ("The Tern, 7 metres, pays 5 coins per metre on the slipway. How much?", 35,
+     {"boat": "Tern", "length": 7, "rate": 5}),
+    ("At 2 coins per metre, what does the 15 metre Skua pay for the slipway?", 30,
+     {"boat": "Skua", "length": 15, "rate": 2}),
+    ("The Eider is 11 metres long; the slipway costs 6 coins per metre. Fee?", 66,
+     {"boat": "Eider", "length": 11, "rate": 6}),
+]
+GOOD = "```python\ndef solve(boat, length, rate):\n    return length * rate\n```"
+WRONG = "```python\ndef solve(boat, length, rate):\n    return length + rate\n```"
+LOOPS = "```python\ndef solve(boat, length, rate):\n    while True:\n        pass\n```"
+
+
+@pytest.fixture
+def family(tmp_path) -> B.Family:
+    f = tmp_path / "fees.jsonl"
+    f.write_text("".join(json.dumps({"id": f"f{i}", "question": q, "answer": a}) + "\n"
+                         for i, (q, a, _) in enumerate(FEES)))
+    return B.load_family(f, name="slipway-fees", description="the slipway fee of one boat")
+
+
+@pytest.fixture(scope="module")
+def sandbox():
+    with Sandbox(pool_size=1, limits=Limits(cpu_seconds=1, wall_seconds=3)) as sb:
+        yield sb
+
+
+def shape_reply(objects) -> str:
+    return json.dumps({"arguments": objects})
+
+
+def builder_script(shapes: list[str], drafts: list[str], repairs: list[str] | None = None):
+    shapes, drafts, repairs = list(shapes), list(drafts), list(repairs or [])
+
+    def reply(messages, **kw):
+        last = messages[-1]["content"]
+        if messages[0]["content"].startswith("You design the arguments"):
+            return shapes.pop(0)
+        if last.startswith("That function is wrong"):
+            return repairs.pop(0)
+        return drafts.pop(0)
+
+    return reply
+
+
+def executor_script(wrong: bool = False):
+    table = {q: args for q, _, args in FEES}
+
+    def reply(messages, **kw):
+        args = dict(table[messages[-1]["content"]])
+        if wrong:
+            args["rate"] += 1
+        return json.dumps(args)
+
+    return reply
+
+
+def run_build(family, sandbox, store, builder, executor, **settings):
+    s = B.BuildSettings(**{"draft_samples": 1, "shape_samples": 2, **settings})
+    return B.build(family, builder=builder, executor=executor, sandbox=sandbox, store=store, settings=s,
+                   builder_sha="b" * 64, executor_sha="e" * 64)
+
+
+def test_happy_path_stores_verified_tool_and_second_build_is_cache_hit(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [GOOD]))
+    executor = ScriptedModel("executor", executor_script())
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, executor)
+        assert tool is not None and tool.verified and report.verified
+        assert report.held_out_score == 1.0 and report.held_out == 2
+        assert [c.ok for c in tool.checks] == [True] * 5
+        assert tool.card.schema_["properties"]["length"] == {"type": "integer"}
+        assert [d.question for d in tool.card.demos] == [q for q, _, _ in FEES[:3]]
+        assert report.steps["shape"].passed == 1 and report.steps["draft"].passed == 1
+        assert report.builder_cpu > 0 and report.executor_cpu > 0
+        n_calls = len(builder.calls) + len(executor.calls)
+        again, report2 = run_build(family, sandbox, store, builder, executor)
+        assert report2.cache_hit and again is not None and again.key == tool.key
+        assert len(builder.calls) + len(executor.calls) == n_calls
+        assert store.get("slipway-fees").verified
+
+
+def test_shape_checks_reject_leaks_and_missing_data(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    leaked = [dict(o, fee=a) for o, (_, a, _) in zip(objects, FEES)]
+    dropped = [{k: v for k, v in o.items() if k != "rate"} for o in objects]
+    builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(dropped)], []))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
+        assert tool is None and not report.verified
+        assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 0
+        text = " ".join(report.failures)
+        assert "answer appears in the arguments" in text and "numbers 3 are missing" in text
+        assert store.names() == []
+
+
+def test_failing_draft_goes_to_repair_with_exact_feedback(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [WRONG, WRONG, WRONG, WRONG], [GOOD]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"])
+    assert tool is not None and tool.verified
+    assert report.steps["repair"].tried == 1 and report.steps["repair"].passed == 1
+    repair_prompt = builder.calls[-1].messages[-1]["content"]
+    assert "must return 36 but returned 15" in repair_prompt
+
+
+def test_timeouts_are_reported_and_nothing_verifies(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [LOOPS], [LOOPS]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"], shape_samples=1)
+    assert tool is None and not report.verified
+    assert any("ran too long" in f for f in report.failures)
+
+
+def test_wrong_executor_arguments_fail_verification_and_do_not_replace_a_verified_tool(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    with ToolStore(tmp_path / "store") as store:
+        good, _ = run_build(family, sandbox, store, ScriptedModel("builder", builder_script([shape_reply(objects)], [GOOD])),
+                            ScriptedModel("executor", executor_script()))
+        bad, report = run_build(family, sandbox, store,
+                                ScriptedModel("builder", builder_script([shape_reply(objects)] * 2, [GOOD] * 4)),
+                                ScriptedModel("executor", executor_script(wrong=True)), seed=5,
+                                strategies=["direct"])
+        assert bad is not None and not bad.verified and report.held_out_score == 0.0
+        assert store.get("slipway-fees").key == good.key
+
+
+def test_budget_stops_sampling(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)] * 2, [WRONG] * 9, [WRONG] * 9),
+                            cpu_per_completion_token=10.0)
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 budget_cpu_minutes=0.5)
+    assert tool is None and "budget" in report.stopped
+    assert len(builder.calls) <= 2
+
+
+@pytest.mark.parametrize("text,msg", [
+    ('{"question": "a?", "answer": 1}\nnot json\n', r"fam.jsonl:2: not valid JSON"),
+    ('{"question": "a?", "answer": 1}\n{"question": "b?"}\n', r"fam.jsonl:2: missing 'answer'"),
+    ('{"id": "x", "question": "a?", "answer": 1}\n{"id": "x", "question": "b?", "answer": 2}\n',
+     r"fam.jsonl:2: duplicate id 'x'"),
+    ('{"question": "a?", "answer": 1}\n', r"at least 2 solved examples"),
+])
+def test_family_file_errors_name_the_line(tmp_path, text, msg):
+    f = tmp_path / "fam.jsonl"
+    f.write_text(text)
+    with pytest.raises(InputError, match=msg):
+        B.load_family(f)
+
+
+def test_extract_code_takes_python_blocks():
+    assert B.extract_code("Here:\n```python\ndef solve():\n    return 1\n```\nDone") == "def solve():\n    return 1\n"
+    assert "def solve" in B.extract_code("```python\ndef solve():\n    return 1\n")
+
+
+def test_exported_module_and_tests_pass_in_a_fresh_interpreter(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    with ToolStore(tmp_path / "store") as store:
+        tool, _ = run_build(family, sandbox, store, ScriptedModel("builder", builder_script([shape_reply(objects)], [GOOD])),
+                            ScriptedModel("executor", executor_script()))
+    out = tmp_path / "exported"
+    files = export(tool, out)
+    assert sorted(p.name for p in files) == ["slipway_fees.py", "test_slipway_fees.py"]
+    assert "runner" not in (out / "slipway_fees.py").read_text()
+    proc = subprocess.run([sys.executable, "-I", "-m", "pytest", "-q", "-p", "no:cacheprovider", str(out)],
+                          capture_output=True, text=True, cwd=out)
+    assert proc.returncode == 0, proc.stdout + proc.stderr
+    assert "5 passed" in proc.stdout
