@@ -65,7 +65,8 @@ def _token_present(token: str, args_text: str, args_numbers: set[float]) -> bool
 
 
 def shape_of(value: Any) -> Any:
-    """The structure of a JSON value with the data left out; int and float both count as number."""
+    """The structure of a JSON value with the data left out; int and float both count as number. Objects in
+    one list may differ in keys (clues of several kinds, say): the list's item shape is their union."""
     if isinstance(value, bool):
         return "boolean"
     if isinstance(value, (int, float)):
@@ -75,37 +76,46 @@ def shape_of(value: Any) -> Any:
     if value is None:
         return "null"
     if isinstance(value, list):
-        shapes = {json.dumps(shape_of(v), sort_keys=True) for v in value}
-        if len(shapes) > 1:
-            return ["mixed"]
-        return [json.loads(shapes.pop())] if shapes else []
+        item: Any = None
+        for v in value:
+            sh = shape_of(v)
+            item = sh if item is None else _merge(item, sh, loose=True)
+            if item is None:
+                return ["mixed"]
+        return [item] if item is not None else []
     if isinstance(value, dict):
         return {k: shape_of(v) for k, v in value.items()}
     return "unknown"
 
 
-def _merge(a: Any, b: Any) -> Any | None:
-    """Two shapes as one (an empty list takes the other's item shape); None when they differ."""
+def _merge(a: Any, b: Any, loose: bool = False) -> Any | None:
+    """Two shapes as one (an empty list takes the other's item shape; with `loose`, objects take the union of
+    their keys); None when they differ."""
     if a == b:
         return a
     if isinstance(a, list) and isinstance(b, list):
         if not a or not b:
             return a or b
-        m = _merge(a[0], b[0])
+        if a == ["mixed"] or b == ["mixed"]:
+            return None
+        m = _merge(a[0], b[0], loose=True)
         return None if m is None else [m]
-    if isinstance(a, dict) and isinstance(b, dict) and a.keys() == b.keys():
+    if isinstance(a, dict) and isinstance(b, dict) and (loose or a.keys() == b.keys()):
         out = {}
-        for k in a:
-            m = _merge(a[k], b[k])
-            if m is None:
-                return None
-            out[k] = m
+        for k in list(a) + [k for k in b if k not in a]:
+            if k in a and k in b:
+                m = _merge(a[k], b[k], loose)
+                if m is None:
+                    return None
+                out[k] = m
+            else:
+                out[k] = a.get(k, b.get(k))
         return out
     return None
 
 
 def common_shape(objects: list[Any]) -> Any | None:
-    """The one shape all argument objects share, or None when they differ."""
+    """The one shape all argument objects share (same top-level keys), or None when they differ."""
     if not objects:
         return None
     shape = shape_of(objects[0])
@@ -141,8 +151,10 @@ def infer_schema(objects: list[dict[str, Any]]) -> dict[str, Any]:
 
     def build(sh: Any, path: tuple) -> dict[str, Any]:
         if isinstance(sh, dict):
+            present = [v for v in _collect(objects, path) if isinstance(v, dict)]
+            required = [k for k in sh if all(k in v for v in present)]
             return {"type": "object", "properties": {k: build(v, path + (k,)) for k, v in sh.items()},
-                    "required": list(sh), "additionalProperties": False}
+                    "required": required, "additionalProperties": False}
         if isinstance(sh, list):
             return {"type": "array", "items": build(sh[0], path + ("[]",)) if sh else {"type": "string"}}
         vals = _collect(objects, path)

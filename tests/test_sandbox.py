@@ -1,0 +1,456 @@
+"""The sandbox: an adversarial corpus, the deeper layers with the screen switched off, and normal tools."""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import threading
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import pytest
+
+from runner.errors import SandboxError
+from runner.sandbox import Limits, RunResult, Sandbox, network_isolation, run_once, screen, syscall_filter
+
+LIMITS = Limits(cpu_seconds=1, wall_seconds=3, memory_mb=128)
+NORMAL = "def solve(x):\n    return x * 2\n"
+
+
+@pytest.fixture(scope="module")
+def sandbox():
+    with Sandbox(limits=LIMITS) as sb:
+        yield sb
+
+
+@pytest.fixture
+def target(tmp_path: Path) -> Path:
+    return tmp_path / "pwned"
+
+
+def assert_host_unharmed(sb: Sandbox, target: Path) -> None:
+    assert not target.exists(), f"{target} was created"
+    follow_up = sb.run(NORMAL, {"x": 21})
+    assert follow_up.ok and follow_up.value == 42, follow_up
+
+
+@dataclass(frozen=True)
+class Case:
+    name: str
+    code: str
+    kind: str
+    contains: str = ""
+    line: int | None = None
+    args: dict | None = None
+
+
+CORPUS = [
+    Case("infinite_loop", "def solve():\n    while True:\n        pass\n", "timeout", "CPU time limit of 1 s"),
+    Case("uncatchable_loop", "def solve():\n    while True:\n        try:\n            while True:\n                pass\n"
+         "        except BaseException:\n            pass\n", "timeout"),
+    Case("module_level_loop", "while True:\n    pass\ndef solve():\n    return 1\n", "timeout", "CPU time limit"),
+    Case("big_int_power", "def solve():\n    return 10 ** 10 ** 8\n", "timeout"),
+    Case("deep_recursion", "def solve():\n    def f(n):\n        return f(n + 1)\n    return f(0)\n", "exception",
+         "RecursionError: maximum recursion depth exceeded", line=3),
+    Case("ten_gib_allocation", "def solve():\n    return bytearray(10 * 1024 ** 3)\n", "memory",
+         "MemoryError: memory limit of 128 MB exceeded at line 2", line=2),
+    Case("memory_growth", "def solve():\n    x = []\n    while True:\n        x.append(bytearray(10 ** 7))\n", "memory", line=4),
+    Case("list_growth_caught", "def solve():\n    x = []\n    try:\n        while True:\n            x.append(' ' * 10 ** 6)\n"
+         "    except MemoryError:\n        x = None\n    return 1 / 0\n", "exception", "ZeroDivisionError", line=8),
+    Case("fork_bomb", "import os\ndef solve():\n    while True:\n        os.fork()\n", "screen",
+         "import of 'os' is not allowed (rule: import-allow-list) at line 1", line=1),
+    Case("subprocess", "import subprocess\ndef solve():\n    subprocess.run(['touch', 'TARGET'])\n", "screen", "import-allow-list"),
+    Case("os_system", "from os import system\ndef solve():\n    return system('touch TARGET')\n", "screen", "'os'"),
+    Case("file_write", "def solve():\n    with open('TARGET', 'w') as fh:\n        fh.write('x')\n", "screen",
+         "name 'open' is not allowed (rule: denied-name) at line 2", line=2),
+    Case("read_passwd", "def solve():\n    return open('/etc/passwd').read()\n", "screen", "denied-name"),
+    Case("socket_connect", "import socket\ndef solve():\n    socket.create_connection(('127.0.0.1', 9))\n", "screen", "'socket'"),
+    Case("ctypes", "import ctypes\ndef solve():\n    return ctypes.string_at(0)\n", "screen", "'ctypes'"),
+    Case("importlib", "import importlib\ndef solve():\n    return importlib.import_module('os').getcwd()\n", "screen", "'importlib'"),
+    Case("dunder_import", "def solve():\n    return __import__('os').system('touch TARGET')\n", "screen", "'__import__'"),
+    Case("subclasses_walk", "def solve():\n    return [c for c in ().__class__.__base__.__subclasses__()]\n", "screen",
+         "dunder-attribute"),
+    Case("globals_walk", "def solve():\n    return solve.__globals__['__builtins__']\n", "screen", "'__globals__'"),
+    Case("builtins_trick", "def solve():\n    return __builtins__['open']('TARGET', 'w')\n", "screen", "'__builtins__'"),
+    Case("getattr_built_dunder", "def solve():\n    d = '_' * 2\n    return getattr((), d + 'class' + d)\n", "screen",
+         "name 'getattr' is not allowed", line=3),
+    Case("exec_string", "def solve():\n    exec('import os; os.system(\"touch TARGET\")')\n", "screen", "'exec'"),
+    Case("eval_string", "def solve():\n    return eval('1 + 1')\n", "screen", "'eval'"),
+    Case("compile_string", "def solve():\n    return compile('1', 'x', 'eval')\n", "screen", "'compile'"),
+    Case("huge_print", "def solve():\n    while True:\n        print('x' * 1000)\n", "output",
+         "printed more than 65536 bytes", line=3),
+    Case("print_overflow_swallowed", "def solve():\n    for _ in range(1000):\n        try:\n            print('y' * 1000)\n"
+         "        except BaseException:\n            pass\n    return 1\n", "output", line=4),
+    Case("return_set", "def solve():\n    return {1, 2}\n", "bad_return", "returned a set"),
+    Case("return_object", "class Box:\n    pass\ndef solve():\n    return Box()\n", "bad_return", "returned a Box object"),
+    Case("return_nan", "def solve():\n    return float('nan')\n", "bad_return", "returned NaN"),
+    Case("return_nested_infinity", "def solve():\n    return {'a': [1, float('inf')]}\n", "bad_return",
+         "returned Infinity at ['a'][1]"),
+    Case("return_too_large", "def solve():\n    return 'x' * (2 * 1024 * 1024)\n", "bad_return", "bytes of JSON"),
+    Case("return_huge_int", "def solve():\n    return 10 ** 5000\n", "bad_return", "JSON"),
+    Case("return_int_keys", "def solve():\n    return {1: 'a'}\n", "bad_return", "non-string key 1"),
+    Case("return_generator", "def solve():\n    return (i for i in range(3))\n", "bad_return", "generator"),
+    Case("return_cycle", "def solve():\n    x = []\n    x.append(x)\n    return x\n", "bad_return", "nested deeper"),
+    Case("exception_line", "def solve(items):\n    total = 0\n    for x in items:\n        total += 10 / x\n    return total\n",
+         "exception", "ZeroDivisionError: division by zero at line 4", line=4, args={"items": [1, 0]}),
+    Case("exception_in_library", "import json\ndef solve():\n    return json.loads('{bad')\n", "exception",
+         "JSONDecodeError", line=3),
+    Case("system_exit", "def solve():\n    raise SystemExit(3)\n", "exception", "SystemExit: 3 at line 2", line=2),
+    Case("wrong_arguments", NORMAL, "exception", "unexpected keyword argument 'y'", args={"y": 1}),
+    Case("signal_handler", "import signal\ndef solve():\n    signal.signal(signal.SIGPROF, signal.SIG_IGN)\n", "screen", "'signal'"),
+    Case("threads_outlive_call", "import threading\ndef solve():\n    threading.Thread(target=lambda: None).start()\n",
+         "screen", "'threading'"),
+    Case("syntax_error", "def solve():\n    x = (1,\n    return x\n", "screen", "SyntaxError: '(' was never closed", line=2),
+    Case("sys_modules", "import sys\ndef solve():\n    return sys.modules['os'].system('touch TARGET')\n", "screen", "'sys'"),
+    Case("module_attribute_leak", "import typing\ndef solve():\n    return typing.sys.modules['os'].system('touch TARGET')\n",
+         "screen", "attribute 'sys' is not allowed"),
+    Case("type_three_args", "def solve():\n    return type('X', (object,), {})\n", "screen", "type-three-args"),
+    Case("type_subclasses", "def solve():\n    return type(0).mro()[-1].__subclasses__()\n", "screen", "'__subclasses__'"),
+    Case("lambda_default_arg", "solve = lambda f=open: f('TARGET', 'w')\n", "screen", "'open'"),
+    Case("lambda_globals", "solve = lambda g=(lambda: 0).__globals__: sorted(g)\n", "screen", "'__globals__'"),
+    Case("generator_frame", "def solve():\n    g = (i for i in [1])\n    return g.gi_frame.f_globals\n", "screen", "'gi_frame'"),
+    Case("format_attribute", "def solve():\n    return '{0.__class__}'.format(1)\n", "screen", "format"),
+    Case("format_built_string", "def solve():\n    d = '_' * 2\n    return ('{0.' + d + 'class' + d + '}').format(1)\n",
+         "screen", "format-string"),
+    Case("str_format_indirect", "def solve(f):\n    return str.format(f, 1)\n", "screen", "format-string"),
+    Case("match_class_dunder", "def solve():\n    match 1:\n        case object(__class__=c):\n            return 1\n",
+         "screen", "'__class__'"),
+    Case("attrgetter", "from operator import attrgetter\ndef solve():\n    return attrgetter('real')(1)\n", "screen", "'attrgetter'"),
+    Case("get_type_hints", "import typing\ndef solve():\n    return typing.get_type_hints(solve)\n", "screen", "get_type_hints"),
+    Case("private_attribute", "import collections\ndef solve():\n    return collections._sys\n", "screen", "private-attribute"),
+    Case("breakpoint", "def solve():\n    breakpoint()\n", "screen", "'breakpoint'"),
+    Case("relative_import", "from . import x\ndef solve():\n    return 1\n", "screen", "relative imports"),
+    Case("missing_entry", "def other():\n    return 1\n", "screen", "no top-level function 'solve'"),
+]
+
+
+@pytest.mark.parametrize("case", CORPUS, ids=[c.name for c in CORPUS])
+def test_adversarial_corpus(sandbox: Sandbox, target: Path, case: Case) -> None:
+    result = sandbox.run(case.code.replace("TARGET", str(target)), case.args)
+    assert result.status == "error"
+    assert result.error_kind == case.kind, result
+    assert case.contains in result.message, result.message
+    assert "\n" not in result.message
+    if case.line is not None:
+        assert result.line == case.line, result
+    assert_host_unharmed(sandbox, target)
+
+
+def test_corpus_is_large_enough() -> None:
+    assert len(CORPUS) >= 25
+
+
+def test_exception_message_is_exact(sandbox: Sandbox) -> None:
+    code = "def solve(a, b):\n    # divide\n\n    return a / b\n"
+    result = sandbox.run(code, {"a": 1, "b": 0})
+    assert (result.error_kind, result.message, result.line) == ("exception", "ZeroDivisionError: division by zero at line 4", 4)
+
+
+# --- second line of defence: the screen off, restricted builtins and import hook still on ---------------
+
+
+@pytest.mark.parametrize(
+    ("code", "contains"),
+    [
+        ("def solve():\n    open('TARGET', 'w').write('x')\n", "NameError: name 'open' is not defined"),
+        ("import os\ndef solve():\n    os.system('touch TARGET')\n", "import of 'os' is not allowed"),
+        ("import ctypes\ndef solve():\n    return 1\n", "import of 'ctypes' is not allowed"),
+        ("import importlib\ndef solve():\n    return 1\n", "import of 'importlib' is not allowed"),
+        ("def solve():\n    return __import__('subprocess')\n", "import of 'subprocess' is not allowed"),
+        ("from . import x\ndef solve():\n    return 1\n", "relative imports are not allowed"),
+        ("def solve():\n    return getattr((), '__class__')\n", "NameError: name 'getattr' is not defined"),
+        ("def solve():\n    exec('x = 1')\n", "NameError: name 'exec' is not defined"),
+        ("def solve():\n    return __builtins__['open']\n", "KeyError: 'open'"),
+        ("import typing\ndef solve():\n    return typing.sys\n", "has no attribute 'sys'"),
+        ("import collections\ndef solve():\n    return collections._sys\n", "has no attribute '_sys'"),
+        ("import operator\ndef solve():\n    return operator.attrgetter\n", "has no attribute 'attrgetter'"),
+    ],
+)
+def test_restricted_builtins_without_screen(sandbox: Sandbox, target: Path, code: str, contains: str) -> None:
+    result = sandbox._run(code.replace("TARGET", str(target)), screen_code=False)
+    assert result.error_kind == "exception", result
+    assert contains in result.message
+    assert_host_unharmed(sandbox, target)
+
+
+def test_module_copies_are_fresh_and_filtered(sandbox: Sandbox) -> None:
+    code = "import math\nfrom collections import abc\nfrom math import *\ndef solve():\n    return [sqrt(4), abc.Sized.__name__]\n"
+    assert sandbox.run(code).value == [2.0, "Sized"]
+
+
+# --- third line of defence: full builtins, only the operating-system limits stand ---------------------
+
+needs_filter = pytest.mark.skipif(not syscall_filter()[0], reason=syscall_filter()[1])
+
+
+def run_unscreened(sb: Sandbox, code: str, target: Path | None = None, limits: Limits | None = None) -> RunResult:
+    if target is not None:
+        code = code.replace("TARGET", str(target))
+    return sb._run(code, limits=limits, screen_code=False, builtins_mode="full")
+
+
+@needs_filter
+@pytest.mark.parametrize(
+    "code",
+    [
+        "def solve():\n    with open('TARGET', 'w') as fh:\n        fh.write('x')\n",
+        "import os\ndef solve():\n    while True:\n        os.fork()\n",
+        "import subprocess\ndef solve():\n    subprocess.run(['touch', 'TARGET'])\n",
+        "import threading\ndef solve():\n    threading.Thread(target=lambda: None).start()\n",
+        "import os\ndef solve():\n    os.mkdir('TARGET')\n",
+        "import os, signal\ndef solve():\n    os.kill(os.getppid(), signal.SIGKILL)\n",
+    ],
+    ids=["file_write", "fork_bomb", "subprocess", "thread", "mkdir", "kill_parent"],
+)
+def test_os_layer_denies_with_permission_errors(sandbox: Sandbox, target: Path, code: str) -> None:
+    result = run_unscreened(sandbox, code, target)
+    assert result.error_kind == "exception", result
+    assert "PermissionError" in result.message or "can't start new thread" in result.message
+    assert_host_unharmed(sandbox, target)
+
+
+@needs_filter
+def test_os_system_cannot_start_a_shell(sandbox: Sandbox, target: Path) -> None:
+    result = run_unscreened(sandbox, "import os\ndef solve():\n    return os.system('touch TARGET')\n", target)
+    assert result.ok and result.value != 0
+    assert_host_unharmed(sandbox, target)
+
+
+@needs_filter
+def test_subclasses_escape_is_stopped_by_the_os_layer(sandbox: Sandbox, target: Path) -> None:
+    """Without the screen, the classic `__subclasses__` walk does reach os.system: only the OS layer stops it."""
+    code = (
+        "def solve():\n"
+        "    wrap = [c for c in object.__subclasses__() if c.__name__ == '_wrap_close'][0]\n"
+        "    return wrap.__init__.__globals__['system']('touch TARGET')\n"
+    )
+    result = sandbox._run(code.replace("TARGET", str(target)), screen_code=False)
+    assert result.ok and result.value != 0
+    assert_host_unharmed(sandbox, target)
+
+
+@needs_filter
+def test_existing_host_file_cannot_be_removed(sandbox: Sandbox, tmp_path: Path) -> None:
+    victim = tmp_path / "keep.txt"
+    victim.write_text("data")
+    result = run_unscreened(sandbox, f"import os\ndef solve():\n    os.unlink({str(victim)!r})\n")
+    assert "PermissionError" in result.message
+    assert victim.read_text() == "data"
+
+
+@needs_filter
+def test_socket_to_loopback_is_blocked(sandbox: Sandbox) -> None:
+    with socket.socket() as server:
+        server.bind(("127.0.0.1", 0))
+        server.listen(1)
+        server.settimeout(0.2)
+        port = server.getsockname()[1]
+        code = f"import socket\ndef solve():\n    socket.create_connection(('127.0.0.1', {port}), timeout=1)\n"
+        result = run_unscreened(sandbox, code)
+        assert result.error_kind == "exception", result
+        with pytest.raises(socket.timeout):
+            server.accept()
+
+
+def test_network_namespace_has_no_interfaces_but_loopback(sandbox: Sandbox) -> None:
+    available, reason = network_isolation()
+    assert isinstance(reason, str) and reason
+    if not available:
+        pytest.skip(reason)
+    result = run_unscreened(sandbox, "def solve():\n    return open('/proc/self/net/dev').read()\n")
+    interfaces = [line.split(":")[0].strip() for line in result.value.splitlines()[2:]]
+    assert interfaces == ["lo"]
+
+
+def test_os_layer_does_not_block_reads(sandbox: Sandbox) -> None:
+    """Honest caveat: below the screen and builtins, reading host files is still possible."""
+    result = run_unscreened(sandbox, "def solve():\n    return open('/etc/passwd').read()[:4]\n")
+    assert result.ok
+
+
+def test_working_folder_is_empty_and_environment_cleared(sandbox: Sandbox) -> None:
+    result = run_unscreened(sandbox, "import os\ndef solve():\n    return [os.getcwd(), os.listdir('.'), sorted(os.environ)]\n")
+    cwd, listing, env = result.value
+    assert "jigwright-sandbox-" in cwd and listing == []
+    assert set(env) <= {"LC_CTYPE"}
+
+
+def test_crash_segfault_and_exit(sandbox: Sandbox) -> None:
+    segv = run_unscreened(sandbox, "import ctypes\ndef solve():\n    return ctypes.string_at(0)\n")
+    assert (segv.error_kind, segv.message) == ("crashed", "the tool's process was killed by SIGSEGV")
+    gone = run_unscreened(sandbox, "import os\ndef solve():\n    os._exit(3)\n")
+    assert gone.error_kind == "crashed" and "exited with code 3" in gone.message
+    assert_host_unharmed(sandbox, Path("/nonexistent/target"))
+
+
+def test_wall_clock_limit(sandbox: Sandbox) -> None:
+    limits = Limits(wall_seconds=0.5, cpu_seconds=5)
+    result = run_unscreened(sandbox, "import time\ndef solve():\n    time.sleep(30)\n", limits=limits)
+    assert (result.error_kind, result.message) == ("timeout", "wall-clock limit of 0.5 s exceeded")
+    assert result.wall_seconds < 1.5
+
+
+def test_dead_worker_is_replaced() -> None:
+    with Sandbox(pool_size=1, limits=LIMITS) as sb:
+        first = sb._workers[0].proc.pid
+        os.killpg(first, signal.SIGKILL)
+        sb._workers[0].proc.wait()
+        assert sb.run(NORMAL, {"x": 1}).value == 2
+        assert sb._workers[0].proc.pid != first
+
+
+def test_worker_dying_mid_call_is_a_crash_result() -> None:
+    with Sandbox(pool_size=2, limits=Limits(cpu_seconds=3, wall_seconds=5)) as sb:
+        pid = sb._workers[0].proc.pid
+        killer = threading.Timer(0.3, os.killpg, (pid, signal.SIGKILL))
+        killer.start()
+        result = sb.run("def solve():\n    while True:\n        pass\n")
+        killer.join()
+        assert result.error_kind == "crashed" and "died" in result.message
+        assert sb.run(NORMAL, {"x": 2}).value == 4
+
+
+# --- normal tools --------------------------------------------------------------------------------------
+
+PERMUTATION_TOOL = '''
+import itertools
+
+def solve(boats, clues, berth):
+    """Which boat is at berth k, given clues (a, b) meaning a berths before b."""
+    for order in itertools.permutations(boats):
+        position = {boat: i for i, boat in enumerate(order)}
+        if all(position[a] < position[b] for a, b in clues):
+            return order[berth - 1]
+    return None
+'''
+
+DATE_TOOL = '''
+from datetime import date, timedelta
+
+def solve(start, end, holidays):
+    first, last = date.fromisoformat(start), date.fromisoformat(end)
+    off = {date.fromisoformat(h) for h in holidays}
+    days = (first + timedelta(days=i) for i in range((last - first).days + 1))
+    return sum(1 for d in days if d.weekday() < 5 and d not in off)
+'''
+
+COINCIDENCE_TOOL = '''
+import math
+from functools import reduce
+
+def solve(periods, starts):
+    """First minute at which boats leaving every p minutes from minute s all leave together."""
+    limit = max(starts) + reduce(lambda a, b: a * b // math.gcd(a, b), periods)
+    for minute in range(max(starts), limit + 1):
+        if all((minute - s) % p == 0 for p, s in zip(periods, starts)):
+            return minute
+    return None
+'''
+
+
+def test_typical_tools(sandbox: Sandbox) -> None:
+    berth = sandbox.run(PERMUTATION_TOOL, {"boats": ["Kestrel", "Mallow", "Tern"], "clues": [["Tern", "Kestrel"], ["Kestrel", "Mallow"]], "berth": 2})
+    assert berth.ok and berth.value == "Kestrel"
+    days = sandbox.run(DATE_TOOL, {"start": "2024-03-01", "end": "2024-03-31", "holidays": ["2024-03-29"]})
+    assert days.ok and days.value == 20
+    minute = sandbox.run(COINCIDENCE_TOOL, {"periods": [4, 6, 10], "starts": [1, 3, 7]})
+    assert minute.ok and minute.value == 57
+    assert minute.cpu_seconds > 0 and minute.wall_seconds > 0
+
+
+def test_state_does_not_leak_between_calls(sandbox: Sandbox) -> None:
+    counter = "calls = [0]\ndef solve():\n    calls[0] += 1\n    return calls[0]\n"
+    assert [sandbox.run(counter).value for _ in range(2)] == [1, 1]
+    sandbox.run("import math\nimport decimal\nmath.pi = 3\ndecimal.getcontext().prec = 3\ndef solve():\n    return 1\n")
+    after = sandbox.run("import math\nimport decimal\ndef solve():\n    return [math.pi, decimal.getcontext().prec]\n")
+    assert after.value == [3.141592653589793, 28]
+
+
+def test_tuples_become_lists_and_stdout_is_kept(sandbox: Sandbox) -> None:
+    result = sandbox.run("def solve():\n    print('working')\n    return (1, {'pair': (2, 3)})\n")
+    assert result.ok and result.value == [1, {"pair": [2, 3]}] and result.stdout == "working\n"
+
+
+def test_ordinary_python_features_pass_the_screen(sandbox: Sandbox) -> None:
+    code = '''
+from __future__ import annotations
+from dataclasses import dataclass
+from typing import List
+
+
+class Problem(ValueError):
+    """Raised with a message; __init__ is fine to define and to call through super()."""
+
+    def __init__(self, text):
+        super().__init__(text)
+
+
+@dataclass
+class Crate:
+    label: str
+    weight: int
+
+
+def solve(labels: List[str]) -> list:
+    crates = [Crate(label, len(label)) for label in labels]
+    if not crates:
+        raise Problem("empty")
+    return [type(crates[0]).__name__, f"{crates[0].label}:{crates[0].weight}", "{0}-{1}".format(1, 2)]
+
+
+if __name__ == "__main__":
+    print(solve(["a"]))
+'''
+    assert screen(code, entry="solve") == []
+    result = sandbox.run(code, {"labels": ["AB12"]})
+    assert result.ok and result.value == ["Crate", "AB12:4", "1-2"] and result.stdout == ""
+
+
+def test_screen_reports_rule_and_line() -> None:
+    violations = screen("import math\nimport os\ndef solve():\n    return open('x')\n", entry="solve")
+    assert [(v.rule, v.line) for v in violations] == [("import-allow-list", 2), ("denied-name", 4)]
+
+
+def test_run_once_is_cold_and_equivalent() -> None:
+    assert run_once(NORMAL, {"x": 5}).value == 10
+    failed = run_once("def solve():\n    return [1][3]\n")
+    assert (failed.error_kind, failed.message) == ("exception", "IndexError: list index out of range at line 2")
+    assert run_once("import os\ndef solve():\n    return 1\n").error_kind == "screen"
+
+
+def test_bad_arguments_and_closed_sandbox_raise() -> None:
+    sb = Sandbox(pool_size=1)
+    with pytest.raises(SandboxError):
+        sb.run(NORMAL, {"x": {1, 2}})
+    with pytest.raises(SandboxError):
+        sb.run(NORMAL, [1])  # type: ignore[arg-type]
+    sb.start()
+    folders = [w.folder for w in sb._workers]
+    sb.close()
+    assert not any(os.path.exists(f) for f in folders)
+    with pytest.raises(SandboxError):
+        sb.run(NORMAL, {"x": 1})
+
+
+def test_warm_call_is_fast(sandbox: Sandbox) -> None:
+    sandbox.run(NORMAL, {"x": 1})
+    started = time.perf_counter()
+    for _ in range(20):
+        sandbox.run(NORMAL, {"x": 1})
+    assert (time.perf_counter() - started) / 20 < 0.1
+
+
+def test_calls_from_several_threads_are_serialised(sandbox: Sandbox) -> None:
+    results: list[RunResult] = []
+
+    def worker(base: int) -> None:
+        results.extend(sandbox.run(NORMAL, {"x": base + i}) for i in range(5))
+
+    threads = [threading.Thread(target=worker, args=(10 * n,)) for n in range(4)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    assert sorted(r.value for r in results) == sorted(2 * (10 * n + i) for n in range(4) for i in range(5))

@@ -1,0 +1,73 @@
+"""Pure checks on proposed tool arguments, and the inferred JSON Schema checked with the jsonschema library."""
+
+from __future__ import annotations
+
+import jsonschema
+import pytest
+
+from runner import shapecheck as S
+
+Q = "The Kittiwake leaves at minute 3 and then every 7 minutes; the Puffin every 5 minutes from minute 2. When together?"
+GOOD = {"boats": [{"name": "Kittiwake", "start": 3, "every": 7}, {"name": "Puffin", "start": 2, "every": 5}]}
+
+
+def test_numbers_in_reads_times_dates_and_plain_numbers():
+    assert S.numbers_in("from 08:30 to 2026-03-02, 7 boats") == {8.0, 30.0, 2026.0, 3.0, 2.0, 7.0}
+
+
+def test_key_tokens_skip_sentence_openers_and_keep_names_and_codes():
+    toks = S.key_tokens("Which boat holds crate CSQU3054383? The Kittiwake or the Puffin. Is 'net loft' open?")
+    assert {"CSQU3054383", "Kittiwake", "Puffin", "net loft"} <= toks
+    assert "Which" not in toks and "The" not in toks and "Is" not in toks
+
+
+def test_good_arguments_pass():
+    assert S.shape_problems([Q], [17], [GOOD]) == []
+
+
+def test_missing_number_name_and_leaked_answer_are_caught():
+    dropped = {"boats": [{"name": "Kittiwake", "start": 3, "every": 7}]}
+    probs = S.shape_problems([Q], [17], [dropped])
+    assert any("numbers 2, 5 are missing" in p for p in probs)
+    assert any("Puffin missing" in p for p in probs)
+    leaked = dict(GOOD, answer=17)
+    assert any("answer appears" in p for p in S.shape_problems([Q], [17], [leaked]))
+    # a number the question itself states is no leak
+    assert S.shape_problems([Q], [7], [GOOD]) == []
+
+
+def test_objects_must_share_one_shape():
+    other = {"vessels": GOOD["boats"]}
+    assert any("share one shape" in p for p in S.shape_problems([Q, Q], [17, 17], [GOOD, other]))
+    assert S.shape_problems([Q], [17], [GOOD, GOOD])[0].startswith("expected 1 argument objects")
+
+
+def test_inferred_schema_accepts_its_examples_and_rejects_others():
+    # Reference: the jsonschema library (reference implementation of the JSON Schema standard).
+    objs = [GOOD, {"boats": [{"name": "Gull", "start": 0, "every": 4}], "note": None} | {}]
+    objs[1].pop("note")
+    schema = S.infer_schema(objs)
+    jsonschema.Draft202012Validator.check_schema(schema)
+    for o in objs:
+        jsonschema.validate(o, schema)
+    for bad in ({"boats": [{"name": "Gull", "start": "0", "every": 4}]},
+                {"boats": [{"name": "Gull", "start": 0}]},
+                {"boats": [], "extra": 1}):
+        with pytest.raises(jsonschema.ValidationError):
+            jsonschema.validate(bad, schema)
+    assert schema["properties"]["boats"]["items"]["properties"]["every"] == {"type": "integer"}
+
+
+def test_list_items_of_several_kinds_make_optional_keys_and_patterns():
+    objs = [{"day": "2026-03-02", "at": "08:30", "clues": [{"kind": "east", "boat": "A", "other": "B"},
+                                                          {"kind": "at", "boat": "A", "berth": 1}]},
+            {"day": "2026-04-01", "at": "17:05", "clues": [{"kind": "west", "boat": "C", "other": "D"}]}]
+    schema = S.infer_schema(objs)
+    item = schema["properties"]["clues"]["items"]
+    assert item["required"] == ["kind", "boat"] and set(item["properties"]) == {"kind", "boat", "other", "berth"}
+    for o in objs:
+        jsonschema.validate(o, schema)
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(dict(objs[0], day="2 March"), schema)
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(dict(objs[0], at="8.30am"), schema)
