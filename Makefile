@@ -28,7 +28,7 @@ demo: models
 	$(JW) models prompt coder-0.5b "In one sentence: what does a harbour master do?"
 
 eval: models
-	$(JW) eval samples/*/ --n 20
+	$(JW) eval $(dir $(wildcard samples/*/test.jsonl)) --n 20
 
 bench: models
 	$(BIN)/python bench/sandbox_bench.py

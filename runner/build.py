@@ -150,6 +150,7 @@ class BuildReport(BaseModel):
 
 
 Progress = Callable[[str, str], None]  # (step, note)
+Trace = Callable[[dict[str, Any]], None]  # one record per builder exchange or candidate check
 
 
 # ---- candidates ---------------------------------------------------------------------------------------------
@@ -245,7 +246,8 @@ class Builder:
 
     def __init__(self, family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: Any,
                  settings: BuildSettings, builder_sha: str = "", executor_sha: str = "",
-                 progress: Progress | None = None):
+                 progress: Progress | None = None, trace: Trace | None = None):
+        self.trace = trace or (lambda record: None)
         self.family, self.builder, self.executor, self.sandbox = family, builder, executor, sandbox
         self.settings = settings
         self.builder_sha, self.executor_sha = builder_sha, executor_sha
@@ -279,6 +281,8 @@ class Builder:
         reply = self.builder.chat(messages, seed=self._next_seed(), temperature=temperature,
                                   max_tokens=max_tokens, schema=schema)
         self._charge(step, reply.usage, "builder")
+        self.trace({"step": step, "prompt": messages[-1]["content"], "reply": reply.text,
+                    "usage": reply.usage.model_dump()})
         return reply.text
 
     # -- shape
@@ -357,6 +361,8 @@ class Builder:
             cand.feedback = cand.feedback or fb
             if res.status != "ok" and res.error_kind == "timeout":
                 break
+        self.trace({"step": "check", "strategy": cand.strategy, "passed": cand.draft_ok,
+                    "of": len(self.drafting), "feedback": cand.feedback})
 
     def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
         msgs = self.draft_messages(shape, strategy)
@@ -479,10 +485,10 @@ def _dedupe(cands: list[Candidate]) -> list[Candidate]:
 
 def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: Any, store: ToolStore,
           settings: BuildSettings, builder_sha: str = "", executor_sha: str = "", force: bool = False,
-          progress: Progress | None = None) -> tuple[Tool | None, BuildReport]:
+          progress: Progress | None = None, trace: Trace | None = None) -> tuple[Tool | None, BuildReport]:
     """Build (or fetch from the tool store) the tool for a family; a failed build is stored unverified."""
     b = Builder(family, builder=builder, executor=executor, sandbox=sandbox, settings=settings,
-                builder_sha=builder_sha, executor_sha=executor_sha, progress=progress)
+                builder_sha=builder_sha, executor_sha=executor_sha, progress=progress, trace=trace)
     if not force:
         cached = store.by_key(b.key)
         if cached is not None:

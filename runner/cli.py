@@ -205,6 +205,7 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
               builder_name: Optional[str] = typer.Option(None, "--builder", help="Builder model name."),
               executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
               force: bool = typer.Option(False, "--force", help="Build again even if the tool store has this build."),
+              trace: Optional[Path] = typer.Option(None, "--trace", help="Append every builder prompt, reply and check to this JSONL file."),
               as_json: bool = typer.Option(False, "--json", help="The build report as JSON on stdout.")) -> None:
     """Turn solved examples into a tool verified on held-out examples, and keep it in the tool store."""
     from . import build as builder_mod
@@ -219,10 +220,20 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
     bmodel = open_model("builder", builder_name, verbose=STATE["verbose"])
     emodel = open_model("executor", executor_name, verbose=STATE["verbose"])
     bar, on = _step_progress()
+    trace_fh = open(trace, "a", encoding="utf-8") if trace else None
+
+    def tracer(record: dict) -> None:
+        if trace_fh:
+            trace_fh.write(json.dumps(record, ensure_ascii=False) + "\n")
+            trace_fh.flush()
+
     with ToolStore() as store, Sandbox() as sandbox, bar:
         tool, report = builder_mod.build(family, builder=bmodel, executor=emodel, sandbox=sandbox, store=store,
                                          settings=settings_, builder_sha=bmodel.spec.sha256,
-                                         executor_sha=emodel.spec.sha256, force=force, progress=on)
+                                         executor_sha=emodel.spec.sha256, force=force, progress=on,
+                                         trace=tracer)
+    if trace_fh:
+        trace_fh.close()
     if as_json:
         out.print_json(json.dumps(report.summary()))
     else:
@@ -304,6 +315,191 @@ def tools_rm(name: str) -> None:
     with ToolStore() as store:
         store.remove(name)
     out.print(f"removed '{name}'")
+
+
+# ---- run and ask ---------------------------------------------------------------------------------------------
+
+class _RunProgress:
+    """The run loop's progress as a rich bar on stderr (a spinner while following a file)."""
+
+    def __init__(self, quiet: bool = False):
+        self.quiet = quiet
+        self.bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
+                            TimeRemainingColumn(), console=err, transient=True, disable=quiet)
+        self.task: Optional[int] = None
+        self.counts = {"tool": 0, "fallback": 0, "failed": 0, "error": 0}
+
+    def __enter__(self) -> "_RunProgress":
+        self.bar.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.bar.stop()
+
+    def phase(self, name: str, total: Optional[int]) -> None:
+        if self.task is not None:
+            self.bar.remove_task(self.task)
+        self.task = self.bar.add_task(name, total=total)
+
+    def advance(self, record=None) -> None:
+        if record is not None:
+            self.counts[record.status] += 1
+            if self.task is not None:
+                self.bar.update(self.task, description="answering " + ", ".join(
+                    f"{k} {v}" for k, v in self.counts.items() if v))
+            if self.task is not None and self.bar.tasks[-1].total is None:
+                err.print(f"{record.id}: {record.status} via {record.route}: {record.answer!r}", highlight=False)
+        if self.task is not None:
+            self.bar.advance(self.task)
+
+    def message(self, text: str) -> None:
+        self.bar.console.print(f"[yellow]{text}[/yellow]", highlight=False)
+
+
+def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = True):
+    from .runloop import RunOptions
+
+    if fallback not in ("builder", "executor", "none"):
+        raise typer.BadParameter("--fallback must be builder, executor or none")
+    return RunOptions(fallback=fallback, min_confidence=min_confidence, seed=seed, group=group)
+
+
+def _report_table(report) -> Table:
+    t = Table(title=f"Run report: {report.queue} → {report.out}")
+    for c in ("route", "tasks", "CPU s mean", "p50", "p95"):
+        t.add_column(c, justify="left" if c == "route" else "right")
+    for name, s in report.cpu_per_task.items():
+        t.add_row(name, str(s.tasks), f"{s.mean:.2f}", f"{s.p50:.2f}", f"{s.p95:.2f}",
+                  style="bold" if name == "all" else None)
+    return t
+
+
+def _print_report(report, console: Console) -> None:
+    console.print(_report_table(report))
+    sv = report.savings
+    console.print(
+        f"tasks {report.tasks} (tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
+        f"input errors {report.errors}); {report.skipped} already answered, skipped\n"
+        f"CPU {report.total_cpu_seconds:.1f} s in total ({report.task_cpu_seconds:.1f} s in tasks, "
+        f"{report.model_load_cpu_seconds:.1f} s loading models); wall {report.wall_seconds:.1f} s; "
+        f"{report.tasks_per_minute:.1f} tasks/min\n"
+        f"prompt cache: {sv.cached_tokens} of {sv.prompt_tokens} prompt tokens reused ({sv.cached_share:.0%}), "
+        f"about {sv.cpu_seconds_saved:.1f} CPU s saved at {sv.cpu_per_prompt_token * 1000:.1f} ms/token "
+        f"({sv.rate_source})", highlight=False)
+    if report.interrupted:
+        console.print("[yellow]interrupted: rerun the same command to answer the rest[/yellow]")
+
+
+@app.command("run")
+def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \"question\"} per line), or - for stdin."),
+            out_file: Optional[str] = typer.Option(None, "--out", "-o", help="Answers file (JSONL, appended and resumed; "
+                                              "default QUEUE.answers.jsonl); - for stdout."),
+            follow: bool = typer.Option(False, "--follow", "-f", help="Keep reading the queue as lines are appended (stop with Ctrl-C)."),
+            fallback: str = typer.Option("builder", "--fallback", help="Who answers when no tool fits or a tool fails: builder, executor or none."),
+            min_confidence: float = typer.Option(0.0, "--min-confidence", min=0.0, max=1.0, help="Route to none below this router confidence."),
+            group: bool = typer.Option(True, "--group/--no-group", help="Route everything first, then answer grouped by tool (keeps prompt prefixes cached)."),
+            executor: Optional[str] = typer.Option(None, "--executor", help="Executor model name (default from models.toml)."),
+            builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
+            seed: int = typer.Option(0, "--seed"),
+            as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
+    """Answer a queue of questions: route each to a tool, fill its arguments, run it; one answer record per task.
+
+    Records are appended and flushed one by one; rerunning with the same --out resumes (answered ids are
+    skipped). Blank queue lines are skipped; a bad line (not JSON, no question, duplicate id) gets an error
+    record with its line number (id line-N when it has none). Ctrl-C once: finish the current task and stop;
+    twice: stop at once. Either way the answers file stays valid JSONL.
+    """
+    from .errors import InputError
+    from .runloop import default_out, local_setup, run_queue
+
+    caution()
+    options = _run_options(fallback, min_confidence, seed, group)
+    target = default_out(queue) if out_file is None else (None if out_file == "-" else Path(out_file))
+    if out_file is None and target is None:
+        raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
+    setup = local_setup(options, executor, builder, verbose=STATE["verbose"])
+    with _RunProgress(quiet=STATE["verbose"]) as progress:
+        report = run_queue(queue, target, options, setup, follow=follow, progress=progress)
+    console = err if target is None else out  # with --out -, stdout carries the answer records
+    if as_json:
+        console.print_json(report.model_dump_json())
+    else:
+        _print_report(report, console)
+    if report.interrupted:
+        sys.exit(130)
+
+
+@app.command("ask")
+def ask_cmd(question: str = typer.Argument(..., help="The question."),
+            fallback: str = typer.Option("builder", "--fallback", help="builder, executor or none."),
+            min_confidence: float = typer.Option(0.0, "--min-confidence", min=0.0, max=1.0),
+            executor: Optional[str] = typer.Option(None, "--executor"),
+            builder: Optional[str] = typer.Option(None, "--builder"),
+            seed: int = typer.Option(0, "--seed"),
+            as_json: bool = typer.Option(False, "--json", help="The answer record as JSON on stdout.")) -> None:
+    """Answer one question the way `run` would, and show its route, arguments and cost."""
+    from .runloop import ask, local_setup
+
+    caution()
+    options = _run_options(fallback, min_confidence, seed)
+    rec = ask(question, options, local_setup(options, executor, builder, verbose=STATE["verbose"]))
+    if as_json:
+        out.print_json(rec.model_dump_json())
+        return
+    conf = f" (confidence {rec.confidence:.2f})" if rec.confidence is not None else ""
+    backed = "tool-backed" if rec.tool_backed else "[yellow]not tool-backed[/yellow]"
+    out.print(f"[bold]answer:[/bold] {rec.answer if rec.answer is not None else '(none)'}  [{rec.status}, {backed}]")
+    out.print(f"route: {rec.route}{conf}", highlight=False)
+    if rec.arguments is not None:
+        out.print(f"arguments: {json.dumps(rec.arguments, ensure_ascii=False)}", highlight=False)
+    if rec.error:
+        out.print(f"[yellow]note:[/yellow] {rec.error}", highlight=False)
+    out.print(f"cost: {rec.cpu.model:.2f} CPU s model + {rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
+              f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
+              highlight=False)
+
+
+@app.command("eval")
+def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders, each with examples.jsonl, test.jsonl and family.toml."),
+             methods: Optional[List[str]] = typer.Option(None, "--methods", "-m", help="Comma-separated or repeated: split, "
+                                                         "executor-direct, builder-direct, builder-steps (default: all)."),
+             n: int = typer.Option(20, "--n", min=1, help="Tasks per family: the first N of test.jsonl after a seeded shuffle."),
+             seed: int = typer.Option(0, "--seed", help="Seed of the task shuffle."),
+             out_dir: Path = typer.Option(Path("eval-out"), "--out", "-o", help="Folder for eval.json, eval.md, eval.png, eval.svg."),
+             builder_name: Optional[str] = typer.Option(None, "--builder", help="Builder model name."),
+             executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
+             as_json: bool = typer.Option(False, "--json", help="The eval report as JSON on stdout.")) -> None:
+    """Compare the split (built tool + executor) with the models answering directly, on held-out tasks.
+
+    Each task result is cached under JIGWRIGHT_HOME/eval as soon as it is known: an interrupted eval loses
+    nothing, and a rerun computes only the missing tasks. A missing tool is built as `jigwright build` would.
+    """
+    from . import evaluate
+
+    chosen = evaluate.parse_methods(methods)
+    families = evaluate.load_families(family_dirs)
+    if "split" in chosen:
+        caution()
+    setup = evaluate.local_setup(builder_name, executor_name, verbose=STATE["verbose"])
+    with _RunProgress(quiet=STATE["verbose"]) as progress:
+        report = evaluate.evaluate(families, setup, methods=chosen, n=n, seed=seed, out_dir=out_dir, progress=progress)
+    if as_json:
+        out.print_json(report.model_dump_json())
+        return
+    t = Table(title=f"Eval: {report.n} tasks per family (seed {report.seed})")
+    for c in evaluate.table_columns(report):
+        t.add_column(c, justify="left" if c in ("family", "method", "model", "note") else "right")
+    for row, cells in zip(report.rows, evaluate.table_rows(report)):
+        if row.flagged:
+            cells[-1] = f"[yellow]{cells[-1]}[/yellow]"
+        t.add_row(*cells, end_section=row.family != evaluate.ALL and row.method == report.methods[-1])
+    out.print(t)
+    for b in report.builds:
+        where = "from the tool store" if b.cache_hit else "built now"
+        state = "no tool" if b.tool is None else ("verified" if b.verified else "[yellow]NOT verified[/yellow]")
+        out.print(f"tool for {b.family}: {state} ({where}), build {b.cpu_seconds:.0f} CPU s")
+    out.print(f"{report.computed} task results computed, {report.reused} reused from {report.cache}; "
+              f"wrote {', '.join(report.files.values())}", highlight=False)
 
 
 @app.command("doctor")

@@ -22,15 +22,35 @@ _STOP = {
 }
 
 
-def numbers_in(text: str) -> set[float]:
-    """Every number written in the text (so '08:30' gives 8 and 30, '2026-03-02' gives 2026, 3 and 2)."""
-    out = set()
+def number_list(text: str) -> list[float]:
+    """Every number written in the text, in order, repeats kept ('08:30' gives 8 and 30)."""
+    out = []
     for m in _NUM.finditer(text):
         tok = m.group(0)
-        if tok.startswith("-") and m.start() > 0 and text[m.start() - 1].isalnum():
+        if tok.startswith("-") and (m.start() == 0 or text[m.start() - 1].isalnum() or text[m.start() - 1] in "-:"):
             tok = tok[1:]
-        out.add(float(tok))
+        out.append(float(tok))
     return out
+
+
+def numbers_in(text: str) -> set[float]:
+    """Every number written in the text (so '08:30' gives 8 and 30, '2026-03-02' gives 2026, 3 and 2)."""
+    return set(number_list(text))
+
+
+def _arg_numbers(value: Any) -> list[float]:
+    """Numbers in an argument object's values (keys are names, not data)."""
+    if isinstance(value, bool) or value is None:
+        return []
+    if isinstance(value, (int, float)):
+        return [float(value)]
+    if isinstance(value, str):
+        return number_list(value)
+    if isinstance(value, list):
+        return [n for v in value for n in _arg_numbers(v)]
+    if isinstance(value, dict):
+        return [n for v in value.values() for n in _arg_numbers(v)]
+    return []
 
 
 def _flatten(value: Any) -> str:
@@ -188,6 +208,19 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         missing_t = sorted(t for t in key_tokens(q) if not _token_present(t, text, arg_nums))
         if missing_t:
             problems.append(f"question {i}: {', '.join(missing_t)} missing")
+        q_counts: dict[float, int] = {}
+        for n in number_list(q):
+            q_counts[n] = q_counts.get(n, 0) + 1
+        a_counts: dict[float, int] = {}
+        for n in _arg_numbers(obj):
+            a_counts[n] = a_counts.get(n, 0) + 1
+        invented = sorted(n for n in a_counts if n not in q_counts)
+        if invented:
+            problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in invented)} are not in the question")
+        doubled = sorted(n for n, c in a_counts.items() if n in q_counts and c > q_counts[n])
+        if doubled:
+            problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in doubled)} are copied more often "
+                            f"than the question states them")
         if _leaks(q, ans, text, arg_nums):
             problems.append(f"question {i}: the answer appears in the arguments")
     return problems

@@ -71,3 +71,12 @@ def test_list_items_of_several_kinds_make_optional_keys_and_patterns():
         jsonschema.validate(dict(objs[0], day="2 March"), schema)
     with pytest.raises(jsonschema.ValidationError):
         jsonschema.validate(dict(objs[0], at="8.30am"), schema)
+
+
+def test_invented_and_duplicated_numbers_are_caught():
+    invented = {"boats": GOOD["boats"], "from_minute": 0}
+    assert any("numbers 0 are not in the question" in p for p in S.shape_problems([Q], [17], [invented]))
+    doubled = {"boats": GOOD["boats"], "asked_minute": 3}
+    assert any("copied more often" in p for p in S.shape_problems([Q], [17], [doubled]))
+    assert S.shape_problems(["Berths 1 to 3: the Gull is at berth 1."], ["Gull"],
+                            [{"berths": 3, "first": 1, "clue": {"boat": "Gull", "berth": 1}}]) == []
