@@ -202,6 +202,29 @@ def parse_arguments_reply(text: str) -> list[Any] | None:
     return None
 
 
+_MODULES = ("math", "itertools", "functools", "collections", "datetime", "calendar", "re", "string", "fractions",
+            "decimal", "statistics", "heapq", "bisect", "json", "operator")
+_NAMES = {"permutations": "itertools", "combinations": "itertools", "product": "itertools", "count": "itertools",
+          "reduce": "functools", "Counter": "collections", "defaultdict": "collections", "deque": "collections",
+          "timedelta": "datetime", "date": "datetime", "gcd": "math", "lcm": "math", "Fraction": "fractions"}
+
+
+def add_missing_imports(code: str) -> str:
+    """Add the allowed imports a reply uses but forgot (`math.gcd` without `import math`): a slip small models
+    make often, and one a mechanical fix handles better than a repair round."""
+    adds = []
+    for mod in _MODULES:
+        if re.search(rf"(?<![\w.]){mod}\.", code) and not re.search(rf"^\s*import\s+[\w, ]*\b{mod}\b", code, re.M):
+            adds.append(f"import {mod}")
+    for name, mod in _NAMES.items():
+        used = re.search(rf"(?<![\w.]){name}\(", code)
+        defined = re.search(rf"^\s*(from\s+\w+\s+import\s+.*\b{name}\b|def\s+{name}\b|{name}\s*=)", code, re.M)
+        if used and not defined and not (name == "date" and re.search(r"^\s*import\s+datetime", code, re.M)
+                                           and not re.search(r"(?<![\w.])date\(", code)):
+            adds.append(f"from {mod} import {name}")
+    return ("\n".join(adds) + "\n\n" + code) if adds else code
+
+
 def _signature(schema: dict[str, Any]) -> str:
     return ", ".join(schema.get("properties", {}))
 
@@ -338,7 +361,7 @@ class Builder:
                 {"role": "user", "content": user}]
 
     def assemble(self, strategy: str, reply: str) -> str:
-        code = extract_code(reply)
+        code = add_missing_imports(extract_code(reply))
         if strategy == "search":
             code = code.rstrip() + "\n" + SEARCH_SOLVE
         return code

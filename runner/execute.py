@@ -166,8 +166,11 @@ def direct_messages(question: str) -> list[Message]:
 
 
 def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = 192) -> DirectAnswer:
-    """Ask `model` for a short worked answer ending in 'Answer: ...' and take that last part."""
+    """Ask `model` for a short worked answer ending in 'Answer: ...' and take that part; a reply cut off by
+    the token limit before any 'Answer:' gives an empty answer (not a fragment of working)."""
     reply = model.chat(direct_messages(question), seed=seed, temperature=0.0, max_tokens=max_tokens)
+    if reply.finish_reason == "length" and not re.search(r"answer\s*(?:is)?\s*[:=]", reply.text, re.IGNORECASE):
+        return DirectAnswer(answer="", text=reply.text, usage=reply.usage)  # cut off before it answered
     return DirectAnswer(answer=extract_answer(reply.text), text=reply.text, usage=reply.usage)
 
 

@@ -4,6 +4,7 @@ constrained replies, and a usage record (tokens, wall and CPU seconds) for every
 from __future__ import annotations
 
 import json
+import os
 import threading
 from typing import Any, Protocol
 
@@ -55,7 +56,7 @@ class LocalModel:
         self.spec = spec
         self.name = spec.name
         self.n_ctx = n_ctx
-        self.n_threads = n_threads or physical_cores()
+        self.n_threads = n_threads or int(os.environ.get("JIGWRIGHT_THREADS", "0")) or physical_cores()
         self.verbose = verbose
         self.load_usage: Usage | None = None
         self._llm: Any = None

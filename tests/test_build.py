@@ -195,3 +195,13 @@ def test_exported_module_and_tests_pass_in_a_fresh_interpreter(family, sandbox, 
                           capture_output=True, text=True, cwd=out)
     assert proc.returncode == 0, proc.stdout + proc.stderr
     assert "5 passed" in proc.stdout
+
+
+def test_missing_allowed_imports_are_added_and_present_ones_left_alone():
+    fixed = B.add_missing_imports("def solve(x):\n    return math.gcd(x, 4) + len(list(permutations([x])))\n")
+    assert fixed.startswith("import math\nfrom itertools import permutations\n")
+    ns: dict = {}
+    exec(fixed, ns)
+    assert ns["solve"](6) == 3
+    same = "import datetime\n\ndef solve(d):\n    return datetime.date(2026, 1, d).isoformat()\n"
+    assert B.add_missing_imports(same) == same

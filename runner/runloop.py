@@ -1,0 +1,496 @@
+"""The run loop: route each queued question to a tool (or none), fill the tool's arguments with the executor,
+run it in the sandbox, fall back to a model's direct answer when no tool fits or the tool fails, and write one
+answer record per task to an append-only file that a rerun resumes. Ends with a run report.
+
+Order: a whole queue is routed first, then answered grouped by tool, so each llama.cpp prompt prefix (the
+card list while routing, one tool's demos while filling, the fallback prompt at the end) is evaluated once
+and then reused from the KV cache. `--follow` answers line by line instead, as lines arrive."""
+
+from __future__ import annotations
+
+import math
+import signal
+import threading
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Iterable, Literal, Protocol
+
+from pydantic import BaseModel, Field
+
+from .execute import answer_directly, answer_with_tool
+from .llm import ChatModel
+from .meter import Stopwatch, Usage
+from .queue import NONE_ROUTE, AnswerRecord, AnswerWriter, BadLine, Cpu, QueueReader, Resumed, Task, Tokens
+from .route import Route, route
+from .tools import Tool
+
+Fallback = Literal["builder", "executor", "none"]
+# CPU seconds per prompt token of the default executor when a run has too few tasks to measure it:
+# ~90 tok/s prompt eval on 2 threads (shared/builder-notes.md), so about 2/90.
+NOTES_PROMPT_CPU_PER_TOKEN = 2 / 90
+
+
+class RunOptions(BaseModel):
+    fallback: Fallback = "builder"
+    min_confidence: float = Field(0.0, ge=0.0, le=1.0)
+    seed: int = 0
+    group: bool = True
+    retries: int = Field(1, ge=0)
+    retry_temperature: float = 0.3
+
+
+class Progress(Protocol):
+    """What the loop tells its caller as it goes (the CLI draws a progress bar from it)."""
+
+    def phase(self, name: str, total: int | None) -> None: ...
+
+    def advance(self, record: AnswerRecord | None = None) -> None: ...
+
+    def message(self, text: str) -> None: ...
+
+
+class _Quiet:
+    def phase(self, name: str, total: int | None) -> None:
+        pass
+
+    def advance(self, record: AnswerRecord | None = None) -> None:
+        pass
+
+    def message(self, text: str) -> None:
+        pass
+
+
+class StopFlag:
+    """Ctrl-C handling: the first SIGINT asks the loop to stop after the task in hand (its record is
+    written); a second one abandons that task at once (KeyboardInterrupt). The file stays valid JSONL
+    either way, because each record is a single write."""
+
+    def __init__(self, progress: Progress | None = None):
+        self.requested = False
+        self.idle = False  # waiting for input, no task in hand: Ctrl-C stops at once
+        self._progress = progress or _Quiet()
+        self._old: Any = None
+
+    def __call__(self) -> bool:
+        return self.requested
+
+    def request(self) -> None:
+        self.requested = True
+
+    def _handler(self, signum: int, frame: Any) -> None:
+        if self.requested or self.idle:
+            self.requested = True
+            raise KeyboardInterrupt
+        self.requested = True
+        self._progress.message("stopping after the current task (Ctrl-C again to abandon it)")
+
+    def __enter__(self) -> "StopFlag":
+        if threading.current_thread() is threading.main_thread():
+            self._old = signal.signal(signal.SIGINT, self._handler)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._old is not None:
+            signal.signal(signal.SIGINT, self._old)
+            self._old = None
+
+
+# ---- one task ----------------------------------------------------------------------------------------------
+
+@dataclass
+class _Work:
+    """A task on its way: its route and everything it has cost so far."""
+
+    task: Task
+    route: Route | None = None
+    usage: Usage = field(default_factory=Usage)
+    tool_cpu: float = 0.0
+    tool_wall: float = 0.0
+    attempts: int = 0
+    arguments: dict[str, Any] | None = None
+    error: str | None = None
+
+    def record(self, status: str, answer: Any = None, tool_backed: bool = False) -> AnswerRecord:
+        r = self.route
+        u = self.usage
+        return AnswerRecord(
+            id=self.task.id, line=self.task.line, question=self.task.question, answer=answer,
+            route=r.tool if r else NONE_ROUTE, confidence=r.confidence if r else None, arguments=self.arguments,
+            status=status, tool_backed=tool_backed, error=self.error, attempts=self.attempts,
+            cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4)),
+            wall_seconds=round(u.wall_seconds + self.tool_wall, 4),
+            tokens=Tokens(prompt=u.prompt_tokens, completion=u.completion_tokens, cached=u.cached_tokens))
+
+
+class Engine:
+    """Route, execute and fall back for single tasks, given the verified tools, the executor, a factory for
+    the fallback model (loaded only when first needed) and a sandbox."""
+
+    def __init__(self, tools: list[Tool], executor: ChatModel, sandbox: Any, options: RunOptions,
+                 fallback_model: Callable[[], ChatModel] | None = None):
+        self.tools = {t.name: t for t in tools}
+        self.cards = [t.card for t in tools]
+        self.executor = executor
+        self.sandbox = sandbox
+        self.options = options
+        self._fallback_factory = fallback_model
+        self._fallback: ChatModel | None = None
+
+    def fallback_model(self) -> ChatModel | None:
+        if self.options.fallback == "none":
+            return None
+        if self.options.fallback == "executor" and self._fallback_factory is None:
+            return self.executor
+        if self._fallback is None and self._fallback_factory is not None:
+            self._fallback = self._fallback_factory()
+        return self._fallback
+
+    def route(self, work: _Work) -> None:
+        work.route = route(self.executor, self.cards, work.task.question, seed=self.options.seed,
+                           min_confidence=self.options.min_confidence)
+        work.usage = work.usage + work.route.usage
+        if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
+            work.error = work.route.note
+
+    def execute(self, work: _Work) -> AnswerRecord | None:
+        """Answer with the routed tool; None when the task needs the fallback (no tool fits, or it failed)."""
+        assert work.route is not None
+        tool = self.tools.get(work.route.tool)
+        if tool is None:
+            return None
+        out = answer_with_tool(self.executor, tool, work.task.question, self.sandbox, seed=self.options.seed,
+                               retries=self.options.retries, retry_temperature=self.options.retry_temperature)
+        work.usage = work.usage + out.usage
+        work.tool_cpu += out.tool_cpu_seconds
+        work.tool_wall += out.tool_wall_seconds
+        work.attempts = out.attempts
+        work.arguments = out.arguments
+        if out.ok:
+            return work.record("tool", out.value, tool_backed=True)
+        work.error = out.error
+        return None
+
+    def fall_back(self, work: _Work) -> AnswerRecord:
+        model = self.fallback_model()
+        if model is None:
+            if work.error is None:
+                work.error = "no tool fits this question and the fallback is off"
+            return work.record("failed")
+        direct = answer_directly(model, work.task.question, seed=self.options.seed)
+        work.usage = work.usage + direct.usage
+        if not direct.answer:
+            why = "ran out of tokens before answering" if direct.text else "gave no answer"
+            work.error = (work.error + "; " if work.error else "") + f"the fallback model {why}"
+            return work.record("failed")
+        return work.record("fallback", direct.answer, tool_backed=False)
+
+    def answer(self, task: Task) -> AnswerRecord:
+        """The whole path for one task (used by `ask` and by `--follow`)."""
+        work = _Work(task)
+        self.route(work)
+        return self.execute(work) or self.fall_back(work)
+
+
+# ---- the run report ----------------------------------------------------------------------------------------
+
+class CpuStats(BaseModel):
+    tasks: int
+    mean: float
+    p50: float
+    p95: float
+
+
+class CacheSavings(BaseModel):
+    """Prompt tokens llama.cpp reused from its KV cache instead of evaluating again, and what that saved.
+    In queue order (route, fill, route, fill, …) consecutive prompts share almost nothing, so nearly all
+    of these tokens would have been evaluated."""
+
+    prompt_tokens: int
+    cached_tokens: int
+    cached_share: float
+    cpu_per_prompt_token: float
+    rate_source: Literal["this run", "builder-notes"]
+    cpu_seconds_saved: float
+
+
+class RunReport(BaseModel):
+    queue: str
+    out: str
+    tasks: int = Field(description="answer records written by this run (errors included)")
+    skipped: int = Field(description="tasks and bad lines already in the answers file")
+    by_tool: int
+    by_fallback: int
+    failed: int
+    errors: int
+    cpu_per_task: dict[str, CpuStats] = Field(description="by route; 'all' covers every answered task")
+    task_cpu_seconds: float
+    model_load_cpu_seconds: float
+    total_cpu_seconds: float
+    wall_seconds: float
+    tasks_per_minute: float
+    tokens: Tokens
+    savings: CacheSavings
+    repaired_bytes: int = 0
+    interrupted: bool = False
+
+
+def quantile(values: list[float], q: float) -> float:
+    """Linear-interpolation quantile (numpy's default) of a non-empty list."""
+    xs = sorted(values)
+    pos = (len(xs) - 1) * q
+    lo, hi = math.floor(pos), math.ceil(pos)
+    return xs[lo] + (xs[hi] - xs[lo]) * (pos - lo)
+
+
+def cpu_stats(values: list[float]) -> CpuStats:
+    return CpuStats(tasks=len(values), mean=round(sum(values) / len(values), 4), p50=round(quantile(values, 0.5), 4),
+                    p95=round(quantile(values, 0.95), 4))
+
+
+def prompt_cpu_per_token(records: list[AnswerRecord]) -> tuple[float, str]:
+    """CPU seconds per evaluated prompt token, fitted over this run's tool-answered tasks as
+    cpu ≈ a·(prompt − cached) + b·completion (least squares through the origin); builder-notes otherwise."""
+    rows = [(r.tokens.prompt - r.tokens.cached, r.tokens.completion, r.cpu.model) for r in records
+            if r.status == "tool" and r.cpu.model > 0]
+    if len(rows) >= 4:
+        sxx = sum(x * x for x, _, _ in rows)
+        syy = sum(y * y for _, y, _ in rows)
+        sxy = sum(x * y for x, y, _ in rows)
+        sxc = sum(x * c for x, _, c in rows)
+        syc = sum(y * c for _, y, c in rows)
+        det = sxx * syy - sxy * sxy
+        if det > 1e-9 * max(sxx * syy, 1):
+            a = (sxc * syy - syc * sxy) / det
+            b = (syc * sxx - sxc * sxy) / det
+            if a > 0 and b > 0:
+                return a, "this run"
+    return NOTES_PROMPT_CPU_PER_TOKEN, "builder-notes"
+
+
+def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int, wall_seconds: float,
+              process_cpu_seconds: float, load_cpu_seconds: float, repaired_bytes: int = 0,
+              interrupted: bool = False) -> RunReport:
+    """The run report from this run's records and its measured totals (pure)."""
+    answered = [r for r in records if r.status != "error"]
+    by_route: dict[str, list[float]] = {}
+    for r in answered:
+        by_route.setdefault(r.route, []).append(r.cpu.total)
+    stats = {k: cpu_stats(v) for k, v in sorted(by_route.items())}
+    if answered:
+        stats["all"] = cpu_stats([r.cpu.total for r in answered])
+    tokens = Tokens(prompt=sum(r.tokens.prompt for r in records), completion=sum(r.tokens.completion for r in records),
+                    cached=sum(r.tokens.cached for r in records))
+    rate, source = prompt_cpu_per_token(records)
+    tool_cpu = sum(r.cpu.tool for r in records)
+    total_cpu = process_cpu_seconds + tool_cpu
+    return RunReport(
+        queue=queue, out=out, tasks=len(records), skipped=skipped,
+        by_tool=sum(r.status == "tool" for r in records), by_fallback=sum(r.status == "fallback" for r in records),
+        failed=sum(r.status == "failed" for r in records), errors=sum(r.status == "error" for r in records),
+        cpu_per_task=stats, task_cpu_seconds=round(sum(r.cpu.total for r in records), 3),
+        model_load_cpu_seconds=round(load_cpu_seconds, 3), total_cpu_seconds=round(total_cpu, 3),
+        wall_seconds=round(wall_seconds, 3),
+        tasks_per_minute=round(len(answered) / (wall_seconds / 60), 2) if wall_seconds > 0 else 0.0,
+        tokens=tokens,
+        savings=CacheSavings(prompt_tokens=tokens.prompt, cached_tokens=tokens.cached,
+                             cached_share=round(tokens.cached / tokens.prompt, 3) if tokens.prompt else 0.0,
+                             cpu_per_prompt_token=round(rate, 5), rate_source=source,
+                             cpu_seconds_saved=round(tokens.cached * rate, 2)),
+        repaired_bytes=repaired_bytes, interrupted=interrupted)
+
+
+# ---- the loop ----------------------------------------------------------------------------------------------
+
+class RunLoop:
+    """Drives an Engine over a queue, writing each record as soon as it is final."""
+
+    def __init__(self, engine: Engine, writer: AnswerWriter, resumed: Resumed | None = None,
+                 progress: Progress | None = None, stop: StopFlag | None = None):
+        self.engine = engine
+        self.writer = writer
+        self.resumed = resumed or Resumed([])
+        self.progress = progress or _Quiet()
+        self.stop = stop or StopFlag()
+        self.records: list[AnswerRecord] = []
+        self.skipped = 0
+        self._done_ids = set(self.resumed.done_ids)
+        self._done_lines = set(self.resumed.done_error_lines)
+
+    def _write(self, record: AnswerRecord) -> None:
+        self.writer.write(record)
+        self.records.append(record)
+        if record.status != "error":
+            self._done_ids.add(record.id)
+        self.progress.advance(record)
+
+    def _pending(self, item: Task | BadLine) -> bool:
+        """False for what an earlier run already wrote (counted as skipped)."""
+        done = (item.line in self._done_lines) if isinstance(item, BadLine) else (item.id in self._done_ids)
+        if done:
+            self.skipped += 1
+        return not done
+
+    def run_batch(self, items: Iterable[Task | BadLine]) -> None:
+        """Route everything first, then answer grouped by tool, then the fallbacks together."""
+        tasks: list[Task] = []
+        for item in items:
+            if not self._pending(item):
+                continue
+            if isinstance(item, BadLine):
+                self._write(item.record())
+            else:
+                tasks.append(item)
+        if not self.engine.options.group:
+            self.progress.phase("answering", len(tasks))
+            for task in tasks:
+                if self.stop():
+                    return
+                self._write(self.engine.answer(task))
+            return
+        self.progress.phase("routing", len(tasks))
+        works = []
+        for task in tasks:
+            if self.stop():
+                return  # nothing of these tasks is written yet: a rerun routes them again
+            work = _Work(task)
+            self.engine.route(work)
+            works.append(work)
+            self.progress.advance()
+        self.progress.phase("answering", len(works))
+        groups: dict[str, list[_Work]] = {}
+        for w in works:
+            groups.setdefault(w.route.tool if w.route else NONE_ROUTE, []).append(w)
+        later: list[_Work] = []
+        for name in sorted(groups, key=lambda n: (n == NONE_ROUTE, n)):
+            for w in groups[name]:
+                if self.stop():
+                    return
+                record = self.engine.execute(w)
+                if record is None:
+                    later.append(w)
+                else:
+                    self._write(record)
+        for w in later:
+            if self.stop():
+                return
+            self._write(self.engine.fall_back(w))
+
+    def run_follow(self, reader: QueueReader, poll: float = 0.5) -> None:
+        """Answer line by line as lines are appended, until Ctrl-C."""
+        self.progress.phase("following", None)
+        items = reader.follow(self.stop, poll=poll)
+        while True:
+            self.stop.idle = True
+            try:
+                item = next(items)
+            except StopIteration:
+                return
+            finally:
+                self.stop.idle = False
+            if not self._pending(item):
+                continue
+            self._write(item.record() if isinstance(item, BadLine) else self.engine.answer(item))
+            if self.stop():
+                return
+
+
+def run(loop: RunLoop, reader: QueueReader, *, follow: bool, out: str, load_cpu_seconds: Callable[[], float],
+        poll: float = 0.5) -> RunReport:
+    """Run the loop over the queue under the Ctrl-C handler and measure it; the report notes an interruption."""
+    interrupted = False
+    with Stopwatch() as sw, loop.stop:
+        try:
+            if follow:
+                loop.run_follow(reader, poll=poll)
+            else:
+                loop.run_batch(reader.items())
+        except KeyboardInterrupt:
+            interrupted = True
+        interrupted = interrupted or loop.stop.requested
+    return summarise(loop.records, queue=reader.source, out=out, skipped=loop.skipped, wall_seconds=sw.wall_seconds,
+                     process_cpu_seconds=sw.cpu_seconds, load_cpu_seconds=load_cpu_seconds(),
+                     repaired_bytes=loop.resumed.repaired_bytes, interrupted=interrupted)
+
+
+def default_out(queue: str) -> Path | None:
+    """QUEUE.jsonl → QUEUE.answers.jsonl next to it; None for stdin (then --out is required)."""
+    if queue == "-":
+        return None
+    p = Path(queue)
+    return p.with_name(p.name[: -len(p.suffix)] + ".answers.jsonl" if p.suffix else p.name + ".answers.jsonl")
+
+
+# ---- services for the CLI ----------------------------------------------------------------------------------
+
+def _load_cpu(*models: Any) -> float:
+    return sum(m.load_usage.cpu_seconds for m in models if getattr(m, "load_usage", None) is not None)
+
+
+@dataclass
+class Setup:
+    """What a run needs from the outside world; tests pass doubles for the models and their own tools."""
+
+    tools: list[Tool]
+    executor: ChatModel
+    fallback_model: Callable[[], ChatModel] | None
+    opened: list[Any] = field(default_factory=list)
+
+
+def local_setup(options: RunOptions, executor_name: str | None = None, builder_name: str | None = None,
+                verbose: bool = False) -> Setup:
+    """The verified tools of the tool store and the local models (the fallback model loads on first use)."""
+    from .llm import open_model
+    from .store import ToolStore
+
+    with ToolStore() as store:
+        tools = list(store.tools(verified_only=True))
+    executor = open_model("executor", executor_name, verbose=verbose)
+    setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor])
+
+    def fallback() -> ChatModel:
+        model = executor if options.fallback == "executor" else open_model("builder", builder_name, verbose=verbose)
+        setup.opened.append(model)
+        return model
+
+    setup.fallback_model = fallback
+    return setup
+
+
+def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *, follow: bool = False,
+              progress: Progress | None = None, poll: float = 0.5) -> RunReport:
+    """`jigwright run`: resume the answers file, answer every pending task, report. `out=None` writes the
+    answer records to stdout instead (no resume)."""
+    from .errors import InputError
+    from .queue import read_answers
+    from .sandbox import Sandbox
+
+    progress = progress or _Quiet()
+    reader = QueueReader(queue)
+    if not reader.is_stdin and not Path(queue).is_file():
+        raise InputError(f"{queue}: no such queue file")
+    if out is not None and not reader.is_stdin and out.resolve() == Path(queue).resolve():
+        raise InputError(f"{out}: the answers file must not be the queue itself")
+    with AnswerWriter(out) as writer:  # the lock first: never repair a file another run is writing
+        resumed = read_answers(out) if out is not None else Resumed([])
+        if resumed.repaired_bytes:
+            progress.message(f"{out}: cut a partial last line ({resumed.repaired_bytes} bytes) left by an "
+                             f"interrupted run")
+        if not setup.tools:
+            progress.message("no verified tools in the tool store: every question goes to the fallback")
+        with Sandbox(pool_size=1) as sandbox:
+            engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
+            loop = RunLoop(engine, writer, resumed, progress, StopFlag(progress))
+            return run(loop, reader, follow=follow, out=str(out) if out else "-", poll=poll,
+                       load_cpu_seconds=lambda: _load_cpu(*{id(m): m for m in setup.opened}.values()))
+
+
+def ask(question: str, options: RunOptions, setup: Setup) -> AnswerRecord:
+    """`jigwright ask`: the run loop's path for one question, nothing written."""
+    from .errors import InputError
+    from .sandbox import Sandbox
+
+    if not question.strip():
+        raise InputError("the question is empty")
+    with Sandbox(pool_size=1) as sandbox:
+        engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
+        return engine.answer(Task(id="ask", question=question.strip(), line=0))
