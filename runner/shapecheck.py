@@ -19,7 +19,16 @@ _STOP = {
     "wednesday", "thursday", "friday", "saturday", "sunday", "january", "february", "march", "april", "may",
     "june", "july", "august", "september", "october", "november", "december", "iso", "here", "now", "can",
     "should", "would", "will", "has", "have", "had", "be", "been", "being", "so", "but", "also", "only",
+    "mondays", "tuesdays", "wednesdays", "thursdays", "fridays", "saturdays", "sundays", "weekends", "minutes",
 }
+
+HARD = ("expected ", "every argument object", "do not share one shape", "the answer appears")
+
+
+def is_hard(problem: str) -> bool:
+    """Problems that rule a proposal out; the rest (a datum not copied, copied twice) only rank it lower,
+    since questions may carry details the answer does not depend on, and held-out verification decides."""
+    return any(h in problem for h in HARD)
 
 
 def number_list(text: str) -> list[float]:

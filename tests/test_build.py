@@ -103,18 +103,46 @@ def test_happy_path_stores_verified_tool_and_second_build_is_cache_hit(family, s
         assert store.get("slipway-fees").verified
 
 
-def test_shape_checks_reject_leaks_and_missing_data(family, sandbox, tmp_path):
+def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
     objects = [a for _, _, a in FEES[:3]]
     leaked = [dict(o, fee=a) for o, (_, a, _) in zip(objects, FEES)]
-    dropped = [{k: v for k, v in o.items() if k != "rate"} for o in objects]
-    builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(dropped)], []))
+    mixed = [objects[0], {"vessel": "Gannet", "metres": 9, "rate": 4}, objects[2]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(mixed)], []))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
         assert tool is None and not report.verified
         assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 0
         text = " ".join(report.failures)
-        assert "answer appears in the arguments" in text and "numbers 3 are missing" in text
+        assert "answer appears in the arguments" in text and "do not share one shape" in text
         assert store.names() == []
+
+
+def test_soft_shape_problems_rank_lower_but_are_still_tried(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    dropped = [{k: v for k, v in o.items() if k != "boat"} for o in objects]
+    drafted = []
+
+    def script(messages, **kw):
+        if messages[0]["content"].startswith("You design the arguments"):
+            return shape_reply(dropped) if kw["seed"] == 1 else shape_reply(objects)
+        drafted.append(messages[-1]["content"])
+        return GOOD
+
+    builder = ScriptedModel("builder", script)
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"])
+    assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 1
+    assert any("Puffin missing" in f for f in report.failures)
+    assert tool is not None and tool.verified
+    assert '"boat"' in drafted[0]  # the proposal without problems was drafted first, though sampled second
+
+    only_soft = ScriptedModel("builder", builder_script([shape_reply(dropped)] * 2, [GOOD.replace("boat, ", "")]))
+    with ToolStore(tmp_path / "store2") as store:
+        tool, report = run_build(family, sandbox, store, only_soft, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"])
+    assert report.steps["shape"].passed == 0
+    assert tool is not None and "boat" not in tool.card.schema_["properties"]
 
 
 def test_failing_draft_goes_to_repair_with_exact_feedback(family, sandbox, tmp_path):
