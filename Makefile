@@ -22,10 +22,19 @@ models: install
 test: models
 	$(BIN)/python -m pytest -q
 
+FAMILIES := $(patsubst samples/%/examples.jsonl,%,$(wildcard samples/*/examples.jsonl))
+
 demo: models
 	$(JW) models list
 	$(JW) models prompt coder-1.5b "In one sentence: what does a harbour master do?"
 	$(JW) models prompt coder-0.5b "In one sentence: what does a harbour master do?"
+	@for f in $(FAMILIES); do \
+	  echo "== building a tool for $$f (cached after the first run)"; \
+	  $(JW) build samples/$$f/examples.jsonl --budget-cpu-min 20 || echo "   ($$f: no verified tool; its questions go to the fallback)"; \
+	done
+	$(JW) tools list
+	rm -f demo-answers.jsonl
+	$(JW) run samples/queue.jsonl --out demo-answers.jsonl --expected samples/queue_expected.jsonl
 
 eval: models
 	$(JW) eval $(dir $(wildcard samples/*/test.jsonl)) --n 20
@@ -35,4 +44,4 @@ bench: models
 	$(BIN)/python bench/model_speed.py
 
 clean:
-	rm -rf $(VENV) .pytest_cache
+	rm -rf $(VENV) .pytest_cache demo-answers.jsonl eval-out
