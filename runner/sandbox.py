@@ -737,12 +737,19 @@ def _module_copy(name: str, cache: dict):
     return copy
 
 
+# Modules that allowed modules import lazily from C code (datetime.strptime imports _strptime, strftime
+# imports time). The screen rejects importing them in tool code, so only those C paths reach them.
+LAZY_INTERNAL_MODULES = frozenset({"_strptime", "time"})
+
+
 def _make_guarded_import():
     cache: dict = {}
 
     def guarded_import(name, globals=None, locals=None, fromlist=(), level=0):
         if level:
             raise ImportError("relative imports are not allowed")
+        if name in LAZY_INTERNAL_MODULES and not fromlist:
+            return _sys.modules[name]
         if name not in ALLOWED_MODULES:
             raise ImportError(f"import of {name!r} is not allowed")
         return _module_copy(name if fromlist else name.split(".")[0], cache)
@@ -1128,7 +1135,7 @@ def _worker_main(config_text: str) -> None:
     _state["seccomp"] = _probe_syscall_filter()
     import importlib
 
-    warm = ["builtins", "math", "resource", "select", "signal", "time", "types"]
+    warm = ["builtins", "math", "resource", "select", "signal", "time", "types", *sorted(LAZY_INTERNAL_MODULES)]
     for name in warm + (sorted(ALLOWED_MODULES) if config["preload"] else []):
         importlib.import_module(name)
     _state["builtins"] = _safe_builtins()

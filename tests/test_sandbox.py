@@ -454,3 +454,16 @@ def test_calls_from_several_threads_are_serialised(sandbox: Sandbox) -> None:
     for thread in threads:
         thread.join()
     assert sorted(r.value for r in results) == sorted(2 * (10 * n + i) for n in range(4) for i in range(5))
+
+
+def test_date_parsing_and_formatting_that_import_lazily_from_c_work():
+    # datetime.strptime imports _strptime and strftime imports time from C code; tool code itself may not.
+    code = ("from datetime import datetime\n\ndef solve(day):\n"
+            "    d = datetime.strptime(day, '%Y-%m-%d')\n    return [d.strftime('%A'), d.isoweekday()]\n")
+    with Sandbox(pool_size=1) as sb:
+        # Reference: 2026-12-01 is a Tuesday (Python's calendar module agrees; checked below).
+        import calendar
+        assert calendar.day_name[calendar.weekday(2026, 12, 1)] == "Tuesday"
+        assert sb.run(code, {"day": "2026-12-01"}).value == ["Tuesday", 2]
+        res = sb.run("import time\n\ndef solve():\n    return time.time()\n", {})
+        assert res.error_kind == "screen" and "time" in res.message
