@@ -26,7 +26,7 @@ from .store import ToolStore
 from .tools import Card, Demo, ExampleCheck, Provenance, Tool, slug
 
 STEPS = ("shape", "draft", "repair", "verify", "card")
-STRATEGIES = ("direct", "search", "permute", "simulate")
+STRATEGIES = ("direct", "search", "simulate", "permute")
 TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
              "strategy_direct.j2", "strategy_search.j2", "strategy_permute.j2", "strategy_simulate.j2",
              "repair.j2", "executor_fill.j2")
@@ -222,6 +222,9 @@ def add_missing_imports(code: str) -> str:
         if used and not defined and not (name == "date" and re.search(r"^\s*import\s+datetime", code, re.M)
                                            and not re.search(r"(?<![\w.])date\(", code)):
             adds.append(f"from {mod} import {name}")
+    if (re.search(r"^\s*import\s+datetime\s*$", code, re.M)
+            and not re.search(r"^\s*from\s+datetime\s+import", code, re.M)):
+        code = re.sub(r"(?<![\w.])datetime\.(strptime|now|today|fromisoformat|combine)\(", r"datetime.datetime.\1(", code)
     return ("\n".join(adds) + "\n\n" + code) if adds else code
 
 
@@ -244,10 +247,12 @@ def _answer_type(answers: list[Any]) -> str:
 
 
 def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answers: list[Any]) -> list[str]:
-    """Strategies that fit the data: search needs whole-number answers; permute and simulate need a list."""
+    """Strategies that fit the data: search needs whole-number answers; permute needs a list and answers that
+    are names read off an arrangement; simulate needs a list."""
     has_list = any(isinstance(v, list) and len(v) >= 2 for o in objects for v in o.values())
     ints = all(isinstance(a, int) and not isinstance(a, bool) and a >= 0 for a in answers)
-    ok = {"direct": True, "search": ints, "permute": has_list, "simulate": has_list}
+    names = all(isinstance(a, str) and a.lower() not in ("yes", "no") for a in answers)
+    ok = {"direct": True, "search": ints, "permute": has_list and names, "simulate": has_list}
     return [s for s in wanted if ok.get(s, False)]
 
 

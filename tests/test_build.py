@@ -233,3 +233,17 @@ def test_missing_allowed_imports_are_added_and_present_ones_left_alone():
     assert ns["solve"](6) == 3
     same = "import datetime\n\ndef solve(d):\n    return datetime.date(2026, 1, d).isoformat()\n"
     assert B.add_missing_imports(same) == same
+
+
+def test_module_used_as_class_is_mended():
+    code = "import datetime\n\ndef solve(d):\n    return datetime.strptime(d, '%Y-%m-%d').day\n"
+    ns: dict = {}
+    exec(B.add_missing_imports(code), ns)
+    assert ns["solve"]("2026-12-01") == 1
+
+
+def test_strategies_fit_the_data():
+    objs = [{"items": ["a", "b"], "k": 1}]
+    assert B.applicable_strategies(list(B.STRATEGIES), objs, [3]) == ["direct", "search", "simulate"]
+    assert B.applicable_strategies(list(B.STRATEGIES), objs, ["Gull"]) == ["direct", "simulate", "permute"]
+    assert B.applicable_strategies(list(B.STRATEGIES), [{"code": "X"}], ["yes"]) == ["direct"]
