@@ -345,6 +345,7 @@ class Builder:
             if objects is None:
                 self.report.failures.append(f"shape {i + 1}: reply is not the expected JSON")
                 continue
+            objects = shapecheck.prune_extras(questions, answers, objects)
             sig = json.dumps(objects, sort_keys=True)
             if sig in seen:
                 continue

@@ -246,3 +246,23 @@ def _leaks(question: str, answer: Any, args_text: str, arg_nums: set[float]) -> 
     if re.fullmatch(r"-?\d+(\.\d+)?", text):
         return _leaks(question, float(text), args_text, arg_nums)
     return text.lower() in args_text.lower() and text.lower() not in question.lower()
+
+
+def prune_extras(questions: list[str], answers: list[Any], objects: list[Any]) -> list[Any]:
+    """Drop top-level fields whose removal leaves fewer problems (a value copied twice, a number invented):
+    small builders often add one such field to an otherwise right design, and dropping it is mechanical."""
+    if not all(isinstance(o, dict) for o in objects) or len(objects) != len(questions):
+        return objects
+    best, best_n = objects, len(shape_problems(questions, answers, objects))
+    while best_n:
+        for key in list(best[0]):
+            trial = [{k: v for k, v in o.items() if k != key} for o in best]
+            if not all(trial):
+                continue
+            n = len(shape_problems(questions, answers, trial))
+            if n < best_n:
+                best, best_n = trial, n
+                break
+        else:
+            break
+    return best

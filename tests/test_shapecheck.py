@@ -80,3 +80,13 @@ def test_invented_and_duplicated_numbers_are_caught():
     assert any("copied more often" in p for p in S.shape_problems([Q], [17], [doubled]))
     assert S.shape_problems(["Berths 1 to 3: the Gull is at berth 1."], ["Gull"],
                             [{"berths": 3, "first": 1, "clue": {"boat": "Gull", "berth": 1}}]) == []
+
+
+def test_prune_drops_an_extra_field_that_copies_or_invents_a_number():
+    extra = dict(GOOD, first_departure=3)
+    assert S.prune_extras([Q], [17], [extra]) == [GOOD]
+    invented = dict(GOOD, first_minute=31)
+    assert S.prune_extras([Q], [17], [invented]) == [GOOD]
+    assert S.prune_extras([Q], [17], [GOOD]) == [GOOD]
+    only = {"boats": GOOD["boats"][:1]}
+    assert S.prune_extras([Q], [17], [only]) == [only]  # nothing to gain by dropping the only field
