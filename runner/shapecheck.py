@@ -223,14 +223,16 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         a_counts: dict[float, int] = {}
         for n in _arg_numbers(obj):
             a_counts[n] = a_counts.get(n, 0) + 1
-        invented = sorted(n for n in a_counts if n not in q_counts)
+        leaked = _leaks(q, ans, text, arg_nums)
+        invented = sorted(n for n in a_counts if n not in q_counts
+                          and not (leaked and isinstance(ans, (int, float)) and n == float(ans)))
         if invented:
             problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in invented)} are not in the question")
         doubled = sorted(n for n, c in a_counts.items() if n in q_counts and c > q_counts[n])
         if doubled:
             problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in doubled)} are copied more often "
                             f"than the question states them")
-        if _leaks(q, ans, text, arg_nums):
+        if leaked:
             problems.append(f"question {i}: the answer appears in the arguments")
     return problems
 
