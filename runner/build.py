@@ -445,6 +445,8 @@ class Builder:
             self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}")
             filled = fill_arguments(self.executor, card, ex.question, seed=self.settings.seed)
             self._charge("verify", filled.usage, "executor")
+            self.trace({"step": "fill", "question": ex.question, "arguments": filled.arguments,
+                        "error": filled.error, "usage": filled.usage.model_dump()})
             fills.append(filled)
         return fills
 
@@ -466,6 +468,8 @@ class Builder:
         self.report.steps["verify"].tried += 1
         cand.checks = checks
         cand.score = ok / len(self.held_out) if self.held_out else 0.0
+        self.trace({"step": "verified", "strategy": cand.strategy, "score": cand.score,
+                    "misses": [c.model_dump() for c in checks if not c.ok]})
         if cand.score >= self.settings.min_score:
             self.report.steps["verify"].passed += 1
 

@@ -348,7 +348,8 @@ class _RunProgress:
                 self.bar.update(self.task, description="answering " + ", ".join(
                     f"{k} {v}" for k, v in self.counts.items() if v))
             if self.task is not None and self.bar.tasks[-1].total is None:
-                err.print(f"{record.id}: {record.status} via {record.route}: {record.answer!r}", highlight=False)
+                err.print(f"{record.id}: {record.status} via {record.route}: {record.answer!r}", highlight=False,
+                          markup=False, soft_wrap=True)
         if self.task is not None:
             self.bar.advance(self.task)
 
@@ -401,6 +402,7 @@ def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \
             executor: Optional[str] = typer.Option(None, "--executor", help="Executor model name (default from models.toml)."),
             builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
+            threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
     """Answer a queue of questions: route each to a tool, fill its arguments, run it; one answer record per task.
 
@@ -417,7 +419,7 @@ def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \
     target = default_out(queue) if out_file is None else (None if out_file == "-" else Path(out_file))
     if out_file is None and target is None:
         raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
-    setup = local_setup(options, executor, builder, verbose=STATE["verbose"])
+    setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
     with _RunProgress(quiet=STATE["verbose"]) as progress:
         report = run_queue(queue, target, options, setup, follow=follow, progress=progress)
     console = err if target is None else out  # with --out -, stdout carries the answer records
@@ -436,27 +438,31 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
             executor: Optional[str] = typer.Option(None, "--executor"),
             builder: Optional[str] = typer.Option(None, "--builder"),
             seed: int = typer.Option(0, "--seed"),
+            threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
             as_json: bool = typer.Option(False, "--json", help="The answer record as JSON on stdout.")) -> None:
     """Answer one question the way `run` would, and show its route, arguments and cost."""
     from .runloop import ask, local_setup
 
     caution()
     options = _run_options(fallback, min_confidence, seed)
-    rec = ask(question, options, local_setup(options, executor, builder, verbose=STATE["verbose"]))
+    rec = ask(question, options, local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads))
     if as_json:
         out.print_json(rec.model_dump_json())
         return
+    from rich.markup import escape
+
     conf = f" (confidence {rec.confidence:.2f})" if rec.confidence is not None else ""
     backed = "tool-backed" if rec.tool_backed else "[yellow]not tool-backed[/yellow]"
-    out.print(f"[bold]answer:[/bold] {rec.answer if rec.answer is not None else '(none)'}  [{rec.status}, {backed}]")
-    out.print(f"route: {rec.route}{conf}", highlight=False)
+    answer = escape(str(rec.answer)) if rec.answer is not None else "(none)"
+    out.print(f"[bold]answer:[/bold] {answer}  ({rec.status}, {backed})", soft_wrap=True)
+    out.print(escape(f"route: {rec.route}{conf}"), highlight=False, soft_wrap=True)
     if rec.arguments is not None:
-        out.print(f"arguments: {json.dumps(rec.arguments, ensure_ascii=False)}", highlight=False)
+        out.print(escape(f"arguments: {json.dumps(rec.arguments, ensure_ascii=False)}"), highlight=False, soft_wrap=True)
     if rec.error:
-        out.print(f"[yellow]note:[/yellow] {rec.error}", highlight=False)
+        out.print(f"[yellow]note:[/yellow] {escape(rec.error)}", highlight=False, soft_wrap=True)
     out.print(f"cost: {rec.cpu.model:.2f} CPU s model + {rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
               f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
-              highlight=False)
+              highlight=False, soft_wrap=True)
 
 
 @app.command("eval")

@@ -436,19 +436,32 @@ class Setup:
     opened: list[Any] = field(default_factory=list)
 
 
+def local_model(role: str, name: str | None, threads: int, verbose: bool = False) -> ChatModel:
+    """A local model with `threads` llama.cpp threads (0: one per physical core, llm.py's default).
+
+    The run loop uses one thread by default: on this 2-core machine shared with other work, two threads
+    spent 14-27 CPU s on a 14-token executor reply (each spin-waits at every layer for the other to be
+    scheduled) against 0.97 CPU s with one thread. CPU seconds per task are what the run report counts."""
+    from . import models, settings
+    from .llm import LocalModel, open_model
+
+    if threads <= 0:
+        return open_model(role, name, verbose=verbose)
+    return LocalModel(models.for_role(settings.load_registry(), role, name), n_threads=threads, verbose=verbose)
+
+
 def local_setup(options: RunOptions, executor_name: str | None = None, builder_name: str | None = None,
-                verbose: bool = False) -> Setup:
+                verbose: bool = False, threads: int = 1) -> Setup:
     """The verified tools of the tool store and the local models (the fallback model loads on first use)."""
-    from .llm import open_model
     from .store import ToolStore
 
     with ToolStore() as store:
         tools = list(store.tools(verified_only=True))
-    executor = open_model("executor", executor_name, verbose=verbose)
+    executor = local_model("executor", executor_name, threads, verbose)
     setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor])
 
     def fallback() -> ChatModel:
-        model = executor if options.fallback == "executor" else open_model("builder", builder_name, verbose=verbose)
+        model = executor if options.fallback == "executor" else local_model("builder", builder_name, threads, verbose)
         setup.opened.append(model)
         return model
 

@@ -8,7 +8,7 @@ previous call's prompt count as cached."""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Callable
 
 from runner.llm import Message, Reply
 from runner.meter import Usage
