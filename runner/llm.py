@@ -85,7 +85,7 @@ class LocalModel:
         return self
 
     def _grammar(self, schema: dict) -> Any:
-        key = json.dumps(schema, sort_keys=True)
+        key = json.dumps(schema)  # key order matters: the grammar emits properties in the schema's order
         if key not in self._grammars:
             from llama_cpp import LlamaGrammar
 
