@@ -34,7 +34,7 @@ demo: models
 	done
 	$(JW) tools list
 	rm -f demo-answers.jsonl
-	$(JW) run samples/queue.jsonl --out demo-answers.jsonl --expected samples/queue_expected.jsonl
+	$(JW) run samples/queue.jsonl --out demo-answers.jsonl --fallback executor --expected samples/queue_expected.jsonl
 
 eval: models
 	$(JW) eval $(dir $(wildcard samples/*/test.jsonl)) --n 20
@@ -42,6 +42,7 @@ eval: models
 bench: models
 	$(BIN)/python bench/sandbox_bench.py
 	$(BIN)/python bench/model_speed.py
+	$(BIN)/python bench/runloop_bench.py
 
 clean:
 	rm -rf $(VENV) .pytest_cache demo-answers.jsonl eval-out

@@ -403,6 +403,7 @@ def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \
             builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
+            expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
     """Answer a queue of questions: route each to a tool, fill its arguments, run it; one answer record per task.
 
@@ -427,8 +428,34 @@ def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \
         console.print_json(report.model_dump_json())
     else:
         _print_report(report, console)
+    if expected is not None and target is not None:
+        _print_score(target, expected, console)
     if report.interrupted:
         sys.exit(130)
+
+
+def _print_score(answers: Path, expected: Path, console: Console) -> None:
+    from .errors import InputError
+    from .queue import AnswerRecord
+    from .runloop import score_answers
+
+    def rows(path: Path) -> list[dict]:
+        out_rows = []
+        for i, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            if line.strip():
+                try:
+                    out_rows.append(json.loads(line))
+                except ValueError as exc:
+                    raise InputError(f"{path}:{i}: not valid JSON: {exc}") from exc
+        return out_rows
+
+    records = [AnswerRecord.model_validate(r) for r in rows(answers)]
+    s = score_answers(records, rows(expected))
+    console.print(f"[bold]Against {expected}[/bold]: routing {s.routed_right}/{s.tasks} right; answers "
+                  f"{s.answers_right}/{s.answers_checked} right; questions that fit no tool routed to none: "
+                  f"{s.unrelated_to_none}/{s.unrelated}", highlight=False)
+    for w in s.wrong:
+        console.print(f"  wrong: {w}", highlight=False, soft_wrap=True)
 
 
 @app.command("ask")

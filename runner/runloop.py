@@ -507,3 +507,43 @@ def ask(question: str, options: RunOptions, setup: Setup) -> AnswerRecord:
     with Sandbox(pool_size=1) as sandbox:
         engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
         return engine.answer(Task(id="ask", question=question.strip(), line=0))
+
+
+class Score(BaseModel):
+    """How an answers file compares with expected records (id, family or null, answer or null)."""
+
+    tasks: int
+    routed_right: int
+    answers_checked: int
+    answers_right: int
+    unrelated: int
+    unrelated_to_none: int
+    wrong: list[str] = Field(default_factory=list)
+
+
+def score_answers(records: list[AnswerRecord], expected: list[dict[str, Any]]) -> Score:
+    """Routing accuracy (the route is the family's tool, or none for a question that fits no family) and answer
+    accuracy (normalised comparison) of the records whose ids have an expected entry."""
+    from .execute import answers_match
+    from .tools import slug
+
+    by_id = {r.id: r for r in records}
+    s = Score(tasks=0, routed_right=0, answers_checked=0, answers_right=0, unrelated=0, unrelated_to_none=0)
+    for exp in expected:
+        rec = by_id.get(str(exp.get("id")))
+        if rec is None:
+            continue
+        s.tasks += 1
+        family = exp.get("family")
+        want_route = slug(family) if family else NONE_ROUTE
+        s.routed_right += rec.route == want_route
+        if not family:
+            s.unrelated += 1
+            s.unrelated_to_none += rec.route == NONE_ROUTE
+        if exp.get("answer") is not None:
+            s.answers_checked += 1
+            ok = answers_match(exp["answer"], rec.answer)
+            s.answers_right += ok
+            if not ok:
+                s.wrong.append(f"{rec.id}: expected {exp['answer']!r}, got {rec.answer!r} via {rec.route}")
+    return s

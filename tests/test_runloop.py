@@ -630,3 +630,20 @@ def test_real_run_killed_midway_resumes_without_duplicates(tmp_home, tmp_path):
     recs = [AnswerRecord.model_validate_json(l) for l in lines]
     assert sorted(r.id for r in recs) == sorted(t["id"] for t in tasks)
     assert json.loads(proc.stdout)["skipped"] == len(first)
+
+
+def test_score_answers_counts_routes_and_answers():
+    from runner.queue import AnswerRecord
+    from runner.runloop import score_answers
+
+    recs = [AnswerRecord(id="a", route="container-codes", answer=3, status="tool", tool_backed=True),
+            AnswerRecord(id="b", route="departures", answer="158.", status="tool", tool_backed=True),
+            AnswerRecord(id="c", route="none", answer="blue", status="fallback"),
+            AnswerRecord(id="d", route="departures", answer=1, status="tool", tool_backed=True)]
+    exp = [{"id": "a", "family": "container_codes", "answer": 4}, {"id": "b", "family": "departures", "answer": 158},
+           {"id": "c", "family": None, "answer": None}, {"id": "d", "family": None, "answer": None},
+           {"id": "zz", "family": "departures", "answer": 1}]
+    s = score_answers(recs, exp)
+    assert (s.tasks, s.routed_right, s.answers_checked, s.answers_right) == (4, 3, 2, 1)
+    assert (s.unrelated, s.unrelated_to_none) == (2, 1)
+    assert s.wrong == ["a: expected 4, got 3 via container-codes"]
