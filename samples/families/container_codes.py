@@ -12,6 +12,7 @@ NAME = "container_codes"
 DESCRIPTION = (
     "Given a container's owner code and serial number (4 letters + 6 digits, e.g. ABCU123456), "
     "answer its ISO 6346 check digit (an integer 0-9)."
+    " The rule (ISO 6346): letters count A=10, B=12, C=13, ... (from 10 upward, skipping 11, 22, 33: A10 B12 C13 D14 E15 F16 G17 H18 I19 J20 K21 L23 M24 N25 O26 P27 Q28 R29 S30 T31 U32 V34 W35 X36 Y37 Z38), digits count as themselves; multiply the value of the character at position i (0 to 9) by 2**i, add up, take the remainder mod 11, then mod 10."
 )
 
 _CODE10 = re.compile(r"^[A-Z]{3}[UJZ][0-9]{6}$")

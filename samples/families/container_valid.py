@@ -11,6 +11,7 @@ NAME = "container_valid"
 DESCRIPTION = (
     "Given a full 11-character container code (4 letters, 6 digits, check digit, e.g. ABCU1234560), "
     "answer \"yes\" if its ISO 6346 check digit is correct and \"no\" otherwise."
+    " The rule (ISO 6346): letters count A=10, B=12, C=13, ... (from 10 upward, skipping 11, 22, 33: A10 B12 C13 D14 E15 F16 G17 H18 I19 J20 K21 L23 M24 N25 O26 P27 Q28 R29 S30 T31 U32 V34 W35 X36 Y37 Z38), digits count as themselves; multiply the value of the character at position i (0 to 9) by 2**i, add up, take the remainder mod 11, then mod 10."
 )
 
 
