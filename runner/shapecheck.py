@@ -243,7 +243,10 @@ def _leaks(question: str, answer: Any, args_text: str, arg_nums: set[float]) -> 
     if isinstance(answer, (int, float)):
         return float(answer) in arg_nums and float(answer) not in numbers_in(question)
     text = str(answer).strip()
-    if text.lower() in {"yes", "no", "true", "false"} or len(text) < 2:
+    if text.lower() in {"yes", "no", "true", "false"}:
+        said = re.search(rf"\b{text.lower()}\b", question.lower())
+        return not said and f'"{text.lower()}"' in args_text.lower()
+    if len(text) < 2:
         return False
     if re.fullmatch(r"-?\d+(\.\d+)?", text):
         return _leaks(question, float(text), args_text, arg_nums)

@@ -90,3 +90,9 @@ def test_prune_drops_an_extra_field_that_copies_or_invents_a_number():
     assert S.prune_extras([Q], [17], [GOOD]) == [GOOD]
     only = {"boats": GOOD["boats"][:1]}
     assert S.prune_extras([Q], [17], [only]) == [only]  # nothing to gain by dropping the only field
+
+
+def test_a_yes_no_answer_copied_into_the_arguments_is_a_leak():
+    q = "Does PPKJ5282263 pass the ISO 6346 check digit test?"
+    assert any("answer appears" in p for p in S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263", "ok": "yes"}]))
+    assert S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263"}]) == []
