@@ -95,4 +95,4 @@ def test_prune_drops_an_extra_field_that_copies_or_invents_a_number():
 def test_a_yes_no_answer_copied_into_the_arguments_is_a_leak():
     q = "Does PPKJ5282263 pass the ISO 6346 check digit test?"
     assert any("answer appears" in p for p in S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263", "ok": "yes"}]))
-    assert S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263"}]) == []
+    assert not any("answer appears" in p for p in S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263"}]))
