@@ -30,7 +30,7 @@ demo: models
 	$(JW) models prompt coder-0.5b "In one sentence: what does a harbour master do?"
 	@for f in $(FAMILIES); do \
 	  echo "== building a tool for $$f (cached after the first run)"; \
-	  $(JW) build samples/$$f/examples.jsonl --budget-cpu-min 20 || echo "   ($$f: no verified tool; its questions go to the fallback)"; \
+	  $(JW) build samples/$$f/examples.jsonl --budget-cpu-min 8 || echo "   ($$f: no verified tool; its questions go to the fallback)"; \
 	done
 	$(JW) tools list
 	rm -f demo-answers.jsonl

@@ -95,7 +95,8 @@ def load_family(path: Path, name: str | None = None, description: str | None = N
 # ---- settings and report ----------------------------------------------------------------------------------
 
 class BuildSettings(BaseModel):
-    """Knobs of one build; all of them are part of the cache key."""
+    """Knobs of one build; all but the CPU budget are part of the cache key (the budget only decides when to
+    stop sampling, so a tool built under one budget is the same tool under another)."""
 
     draft_examples: int = 3
     shape_samples: int = 4
@@ -259,7 +260,7 @@ def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answ
 def build_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
     payload = {"examples": [e.model_dump() for e in family.examples], "description": family.description,
                "builder": builder_sha, "executor": executor_sha, "templates": prompts.template_hash(*TEMPLATES),
-               "settings": settings.model_dump()}
+               "settings": settings.model_dump(exclude={"budget_cpu_minutes"})}
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
 
 
