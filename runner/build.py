@@ -41,6 +41,7 @@ class Example(BaseModel):
     id: str
     question: str
     answer: Any
+    line: int = 0
 
 
 class Family(BaseModel):
@@ -50,13 +51,9 @@ class Family(BaseModel):
     source: str
 
 
-def load_family(path: Path, name: str | None = None, description: str | None = None) -> Family:
-    """Read a family file (JSONL: question, answer, optional id); a family.toml beside it supplies the name
-    and description unless given. Bad lines are an InputError naming file and line."""
-    try:
-        lines = path.read_text(encoding="utf-8").splitlines()
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read: {exc.strerror}") from exc
+def parse_solved(source: str, lines: list[str]) -> list[Example]:
+    """Solved examples from JSONL lines (question, answer, optional id); blank lines are skipped and a bad line
+    is an InputError naming source and line. Family files and evaluation task files share this format."""
     examples: list[Example] = []
     seen: set[str] = set()
     for i, line in enumerate(lines, 1):
@@ -65,19 +62,30 @@ def load_family(path: Path, name: str | None = None, description: str | None = N
         try:
             raw = json.loads(line)
         except ValueError as exc:
-            raise InputError(f"{path}:{i}: not valid JSON: {exc.msg}") from exc
+            raise InputError(f"{source}:{i}: not valid JSON: {exc.msg} at column {exc.colno}") from None
         if not isinstance(raw, dict):
-            raise InputError(f"{path}:{i}: expected an object with 'question' and 'answer'")
+            raise InputError(f"{source}:{i}: expected an object with 'question' and 'answer'")
         for key in ("question", "answer"):
             if key not in raw:
-                raise InputError(f"{path}:{i}: missing '{key}'")
+                raise InputError(f"{source}:{i}: missing '{key}'")
         if not isinstance(raw["question"], str) or not raw["question"].strip():
-            raise InputError(f"{path}:{i}: 'question' must be non-empty text")
+            raise InputError(f"{source}:{i}: 'question' must be non-empty text")
         ex_id = str(raw.get("id", f"line-{i}"))
         if ex_id in seen:
-            raise InputError(f"{path}:{i}: duplicate id '{ex_id}'")
+            raise InputError(f"{source}:{i}: duplicate id '{ex_id}'")
         seen.add(ex_id)
-        examples.append(Example(id=ex_id, question=raw["question"].strip(), answer=raw["answer"]))
+        examples.append(Example(id=ex_id, question=raw["question"].strip(), answer=raw["answer"], line=i))
+    return examples
+
+
+def load_family(path: Path, name: str | None = None, description: str | None = None) -> Family:
+    """Read a family file (JSONL: question, answer, optional id); a family.toml beside it supplies the name
+    and description unless given. Bad lines are an InputError naming file and line."""
+    try:
+        lines = path.read_text(encoding="utf-8").splitlines()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror}") from exc
+    examples = parse_solved(str(path), lines)
     if len(examples) < 2:
         raise InputError(f"{path}: a family needs at least 2 solved examples (found {len(examples)})")
     about: dict[str, Any] = {}
@@ -258,7 +266,7 @@ def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answ
 
 
 def build_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
-    payload = {"examples": [e.model_dump() for e in family.examples], "description": family.description,
+    payload = {"examples": [e.model_dump(exclude={"line"}) for e in family.examples], "description": family.description,
                "builder": builder_sha, "executor": executor_sha, "templates": prompts.template_hash(*TEMPLATES),
                "settings": settings.model_dump(exclude={"budget_cpu_minutes"})}
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
@@ -554,7 +562,7 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
                                       template_hashes=prompts.template_hash(*TEMPLATES),
                                       settings=settings.model_dump(), family_file=family.source,
                                       examples_sha256=hashlib.sha256(json.dumps(
-                                          [e.model_dump() for e in family.examples], sort_keys=True
+                                          [e.model_dump(exclude={"line"}) for e in family.examples], sort_keys=True
                                       ).encode()).hexdigest(), strategy=cand.strategy),
                 report=report.model_dump())
     store.put(tool)

@@ -73,27 +73,8 @@ class FamilyDir:
 
 def parse_tasks(source: str, lines: list[str]) -> list[EvalTask]:
     """Tasks from the lines of a test.jsonl; a bad line is an InputError naming file and line."""
-    tasks: list[EvalTask] = []
-    seen: set[str] = set()
-    for i, line in enumerate(lines, 1):
-        if not line.strip():
-            continue
-        try:
-            raw = json.loads(line)
-        except ValueError as exc:
-            raise InputError(f"{source}:{i}: not valid JSON: {exc.msg} at column {exc.colno}") from None
-        if not isinstance(raw, dict):
-            raise InputError(f"{source}:{i}: expected an object with 'question' and 'answer'")
-        for key in ("question", "answer"):
-            if key not in raw:
-                raise InputError(f"{source}:{i}: missing '{key}'")
-        if not isinstance(raw["question"], str) or not raw["question"].strip():
-            raise InputError(f"{source}:{i}: 'question' must be non-empty text")
-        task_id = str(raw.get("id", f"line-{i}"))
-        if task_id in seen:
-            raise InputError(f"{source}:{i}: duplicate id '{task_id}'")
-        seen.add(task_id)
-        tasks.append(EvalTask(id=task_id, question=raw["question"].strip(), answer=raw["answer"], line=i))
+    tasks = [EvalTask(id=e.id, question=e.question, answer=e.answer, line=e.line)
+             for e in build_mod.parse_solved(source, lines)]
     if not tasks:
         raise InputError(f"{source}: no tasks")
     return tasks
