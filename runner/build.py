@@ -545,11 +545,17 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
             report = BuildReport.model_validate(cached.report)
             report.cache_hit = True
             return cached, report
+        failed = store.failed(b.key)
+        if failed is not None:
+            report = BuildReport.model_validate_json(failed)
+            report.cache_hit = True
+            return None, report
     with Stopwatch() as total:
         cand, shape, card = b.run()
     report = b.report
     if cand is None or shape is None or card is None:
         report.verified = False
+        store.put_failed(b.key, report.model_dump_json())
         return None, report
     report.verified = cand.score >= settings.min_score
     report.held_out_score = cand.score

@@ -242,6 +242,8 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
             for f in report.failures[-5:]:
                 out.print(f"  - {f}", highlight=False)
     if not report.verified:
+        if report.cache_hit:
+            err.print("(this exact build failed before; `--force` tries again, or change --seed or --samples)")
         raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
                                + (" (an unverified best attempt is kept: `jigwright tools show " + family.name + "`)"
                                   if tool else ""))

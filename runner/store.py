@@ -44,6 +44,13 @@ class ToolStore:
             if tool.verified or current is None or not current.verified:
                 self._cache.set(f"name:{tool.name}", tool.key)
 
+    def put_failed(self, key: str, report_json: str) -> None:
+        """Remember a build that produced no tool at all, so the same build is not paid for twice."""
+        self._cache.set(f"failed:{key}", report_json)
+
+    def failed(self, key: str) -> str | None:
+        return self._cache.get(f"failed:{key}")
+
     def get(self, name: str, missing_ok: bool = False) -> Tool | None:
         key = self._cache.get(f"name:{name}")
         tool = self.by_key(key) if key else None

@@ -115,6 +115,10 @@ def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
         text = " ".join(report.failures)
         assert "answer appears in the arguments" in text and "do not share one shape" in text
         assert store.names() == []
+        calls = len(builder.calls)
+        again, report2 = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
+        assert again is None and report2.cache_hit and not report2.verified and len(builder.calls) == calls
+        assert report2.failures == report.failures
 
 
 def test_soft_shape_problems_rank_lower_but_are_still_tried(family, sandbox, tmp_path):
