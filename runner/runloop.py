@@ -521,9 +521,11 @@ class Score(BaseModel):
     wrong: list[str] = Field(default_factory=list)
 
 
-def score_answers(records: list[AnswerRecord], expected: list[dict[str, Any]]) -> Score:
-    """Routing accuracy (the route is the family's tool, or none for a question that fits no family) and answer
-    accuracy (normalised comparison) of the records whose ids have an expected entry."""
+def score_answers(records: list[AnswerRecord], expected: list[dict[str, Any]],
+                  available: set[str] | None = None) -> Score:
+    """Routing accuracy (the route is the family's tool, or none for a question that fits no family or whose
+    family has no tool in `available`) and answer accuracy (normalised comparison) of the records whose ids
+    have an expected entry."""
     from .execute import answers_match
     from .tools import slug
 
@@ -535,7 +537,7 @@ def score_answers(records: list[AnswerRecord], expected: list[dict[str, Any]]) -
             continue
         s.tasks += 1
         family = exp.get("family")
-        want_route = slug(family) if family else NONE_ROUTE
+        want_route = slug(family) if family and (available is None or slug(family) in available) else NONE_ROUTE
         s.routed_right += rec.route == want_route
         if not family:
             s.unrelated += 1
