@@ -21,7 +21,7 @@ from . import prompts, shapecheck
 from .errors import InputError
 from .execute import Filled, answers_match, fill_arguments, normalise
 from .llm import ChatModel, Message
-from .meter import Stopwatch, Usage
+from .meter import Usage
 from .store import ToolStore
 from .tools import Card, Demo, ExampleCheck, Provenance, Tool, slug
 
@@ -491,17 +491,16 @@ class Builder:
                 fills: list[Filled] | None = None
                 for strategy in applicable_strategies(self.settings.strategies, shape.objects,
                                                       [e.answer for e in self.drafting]):
-                    with Stopwatch() as sw:
-                        cands = self.draft(shape, strategy)
-                        failing = sorted((c for c in cands if c.draft_ok < len(self.drafting)),
-                                         key=lambda c: (-c.draft_ok, len(c.code)))
-                        passing = [c for c in cands if c.draft_ok == len(self.drafting)]
-                        if not passing:
-                            for c in failing[: self.settings.repairs_per_strategy]:
-                                fixed = self.repair(c, shape)
-                                if fixed.draft_ok == len(self.drafting):
-                                    passing.append(fixed)
-                                    break
+                    cands = self.draft(shape, strategy)
+                    failing = sorted((c for c in cands if c.draft_ok < len(self.drafting)),
+                                     key=lambda c: (-c.draft_ok, len(c.code)))
+                    passing = [c for c in cands if c.draft_ok == len(self.drafting)]
+                    if not passing:
+                        for c in failing[: self.settings.repairs_per_strategy]:
+                            fixed = self.repair(c, shape)
+                            if fixed.draft_ok == len(self.drafting):
+                                passing.append(fixed)
+                                break
                     if not passing:
                         self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback}"
                                                     if failing else f"{strategy}: no candidates")
@@ -550,8 +549,7 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
             report = BuildReport.model_validate_json(failed)
             report.cache_hit = True
             return None, report
-    with Stopwatch() as total:
-        cand, shape, card = b.run()
+    cand, shape, card = b.run()
     report = b.report
     if cand is None or shape is None or card is None:
         report.verified = False

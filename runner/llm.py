@@ -11,7 +11,7 @@ from typing import Any, Protocol
 from pydantic import BaseModel
 
 from . import models, settings
-from .errors import ModelRuntimeError, NotGGUFError
+from .errors import ModelRuntimeError
 from .meter import Stopwatch, Usage, physical_cores
 from .settings import ModelSpec
 
@@ -136,4 +136,4 @@ def open_model(role: str, name: str | None = None, *, verbose: bool = False) -> 
     return _OPEN[spec.name]
 
 
-__all__ = ["ChatModel", "LocalModel", "Reply", "open_model", "NotGGUFError"]
+__all__ = ["ChatModel", "LocalModel", "Reply", "open_model"]

@@ -17,6 +17,7 @@ from pydantic import BaseModel
 
 from . import settings
 from .errors import (
+    ConfigError,
     FetchError,
     ModelIntegrityError,
     ModelMissingError,
@@ -217,7 +218,6 @@ def add_local(path: Path, name: str, roles: list[str], registry: Registry,
     """Register a GGUF file the user already has, recording its size and SHA-256 in models.local.toml."""
     path = path.expanduser().resolve()
     if name in registry.models:
-        from .errors import ConfigError
         raise ConfigError(f"a model named '{name}' is already registered")
     facts = read_gguf(path)
     spec = ModelSpec(name=name, roles=roles, upstream=str(facts.get("name") or ""),
