@@ -26,10 +26,31 @@ from .store import ToolStore
 from .tools import Card, Demo, ExampleCheck, Provenance, Tool, slug
 
 STEPS = ("shape", "draft", "repair", "verify", "card")
-STRATEGIES = ("direct", "search", "simulate", "permute")
+STRATEGIES = ("direct", "search", "choose", "simulate", "permute")
 TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
-             "strategy_direct.j2", "strategy_search.j2", "strategy_permute.j2", "strategy_simulate.j2",
-             "repair.j2", "executor_fill.j2")
+             "strategy_direct.j2", "strategy_search.j2", "strategy_choose.j2", "strategy_permute.j2",
+             "strategy_simulate.j2", "repair.j2", "executor_fill.j2")
+# The choose strategy's solve: try each value found at the answer's place in the arguments (a path such as
+# "crew[].name", see shapecheck.answer_paths), return the first for which the builder's `holds` is True.
+CHOOSE_SOLVE = """
+
+def candidate_values(arguments, path):
+    values = [arguments]
+    for step in path.replace("[]", ".[]").split("."):
+        if step == "[]":
+            values = [item for v in values if isinstance(v, list) for item in v]
+        elif step:
+            values = [v[step] for v in values if isinstance(v, dict) and step in v]
+    return values
+
+
+def solve(**arguments):
+    for x in candidate_values(arguments, PATH):
+        if holds(x, **arguments):
+            return x
+    return None
+"""
+SHAPE_DEMOS = 2  # worked demonstrations in prompts/shape_demo.j2: a plain list, then facts of several kinds
 SEARCH_SOLVE = "\n\ndef solve(**arguments):\n    x = 0\n    while not holds(x, **arguments):\n        x += 1\n    return x\n"
 
 
@@ -197,7 +218,11 @@ def extract_code(text: str) -> str:
 
 
 def parse_arguments_reply(text: str) -> list[Any] | None:
-    """The list under "arguments" in the first JSON object of a reply (fenced or not), or None."""
+    """The list under "arguments" in the first JSON object of a reply (fenced or not), or None.
+
+    If that is not valid JSON because brackets went astray (a small builder sometimes closes the list after
+    the first question's pieces and carries on), the JSON objects that follow "arguments": in order are
+    taken instead, so that `shapecheck.merge_pieces` can join the pieces mechanically."""
     start = text.find("{")
     while start != -1:
         try:
@@ -207,8 +232,23 @@ def parse_arguments_reply(text: str) -> list[Any] | None:
             continue
         if isinstance(obj, dict) and isinstance(obj.get("arguments"), list):
             return obj["arguments"]
+        break
+    m = re.search(r'"arguments"\s*:\s*\[', text)
+    if m is None:
         return None
-    return None
+    objects, i, decoder = [], m.end(), json.JSONDecoder()
+    while i < len(text):
+        if text[i] in " \t\r\n,[]":
+            i += 1
+            continue
+        if text[i] != "{":
+            break
+        try:
+            obj, i = decoder.raw_decode(text, i)
+        except ValueError:
+            break
+        objects.append(obj)
+    return objects or None
 
 
 _MODULES = ("math", "itertools", "functools", "collections", "datetime", "calendar", "re", "string", "fractions",
@@ -256,12 +296,14 @@ def _answer_type(answers: list[Any]) -> str:
 
 
 def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answers: list[Any]) -> list[str]:
-    """Strategies that fit the data: search needs whole-number answers; permute needs a list and answers that
-    are names read off an arrangement; simulate needs a list."""
+    """Strategies that fit the data: search needs whole-number answers; choose needs a text answer found at one
+    place in the arguments; permute needs a list and answers that are names read off an arrangement; simulate
+    needs a list."""
     has_list = any(isinstance(v, list) and len(v) >= 2 for o in objects for v in o.values())
     ints = all(isinstance(a, int) and not isinstance(a, bool) and a >= 0 for a in answers)
     names = all(isinstance(a, str) and a.lower() not in ("yes", "no") for a in answers)
-    ok = {"direct": True, "search": ints, "permute": has_list and names, "simulate": has_list}
+    ok = {"direct": True, "search": ints, "choose": bool(shapecheck.answer_paths(objects, answers)),
+          "permute": has_list and names, "simulate": has_list}
     return [s for s in wanted if ok.get(s, False)]
 
 
@@ -325,13 +367,12 @@ class Builder:
     # -- shape
     def shape_messages(self) -> list[Message]:
         questions = [e.question for e in self.drafting]
-        return [
-            {"role": "system", "content": prompts.render("shape_system.j2")},
-            {"role": "user", "content": prompts.render("shape_demo.j2", part="user")},
-            {"role": "assistant", "content": prompts.render("shape_demo.j2", part="assistant")},
-            {"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
-                                                       questions=questions)},
-        ]
+        msgs: list[Message] = [{"role": "system", "content": prompts.render("shape_system.j2")}]
+        for index in range(SHAPE_DEMOS):
+            msgs += [{"role": "user", "content": prompts.render("shape_demo.j2", part="user", index=index)},
+                     {"role": "assistant", "content": prompts.render("shape_demo.j2", part="assistant", index=index)}]
+        return msgs + [{"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
+                                                                  questions=questions)}]
 
     def shapes(self) -> Iterator[ShapeCandidate]:
         """Sampled argument designs, checked mechanically. Proposals with no problem are yielded as they come;
@@ -354,7 +395,7 @@ class Builder:
             if objects is None:
                 self.report.failures.append(f"shape {i + 1}: reply is not the expected JSON")
                 continue
-            objects = shapecheck.prune_extras(questions, answers, objects)
+            objects = shapecheck.prune_extras(questions, answers, shapecheck.merge_pieces(len(questions), objects))
             sig = json.dumps(objects, sort_keys=True)
             if sig in seen:
                 continue
@@ -379,18 +420,25 @@ class Builder:
         assert shape.schema is not None
         user = prompts.render("draft.j2", description=self.family.description, schema=shape.schema,
                               examples=examples, strategy=strategy, signature=_signature(shape.schema),
-                              answer_type=_answer_type([e.answer for e in self.drafting]))
+                              answer_type=_answer_type([e.answer for e in self.drafting]),
+                              answer_from=self.answer_from(shape))
         return [{"role": "system", "content": prompts.render("draft_system.j2")},
                 {"role": "user", "content": user}]
 
-    def assemble(self, strategy: str, reply: str) -> str:
+    def answer_from(self, shape: ShapeCandidate) -> str:
+        """Where the answer is found in the arguments of every drafting example ("" if nowhere or not text)."""
+        return next(iter(shapecheck.answer_paths(shape.objects, [e.answer for e in self.drafting])), "")
+
+    def assemble(self, strategy: str, reply: str, shape: ShapeCandidate) -> str:
         code = add_missing_imports(extract_code(reply))
         if strategy == "search":
             code = code.rstrip() + "\n" + SEARCH_SOLVE
+        elif strategy == "choose":
+            code = code.rstrip() + "\n" + CHOOSE_SOLVE.replace("PATH", repr(self.answer_from(shape)))
         return code
 
     def check_on_drafting(self, cand: Candidate, shape: ShapeCandidate) -> None:
-        """Run the candidate on the drafting examples; keep the first failure as exact feedback."""
+        """Run the candidate on the drafting examples; every failure, in order, becomes exact feedback."""
         cand.draft_ok, cand.feedback = 0, ""
         for ex, args in zip(self.drafting, shape.objects):
             res = self.sandbox.run(cand.code, args)
@@ -404,7 +452,8 @@ class Builder:
             else:
                 cand.draft_ok += 1
                 continue
-            cand.feedback = cand.feedback or fb
+            # every failing example, not only the first: a fix for one example alone tends to break another
+            cand.feedback = f"{cand.feedback}\n{fb}" if cand.feedback else fb
             if res.status != "ok" and res.error_kind == "timeout":
                 break
         self.trace({"step": "check", "strategy": cand.strategy, "passed": cand.draft_ok,
@@ -417,7 +466,7 @@ class Builder:
             self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}")
             temp = 0.2 if i == 0 else self.settings.temperature
             text = self._ask_builder("draft", msgs, temperature=temp, max_tokens=400)
-            cand = Candidate(strategy=strategy, code=self.assemble(strategy, text), messages=msgs, reply=text)
+            cand = Candidate(strategy=strategy, code=self.assemble(strategy, text, shape), messages=msgs, reply=text)
             self.check_on_drafting(cand, shape)
             self.report.steps["draft"].tried += 1
             if cand.draft_ok == len(self.drafting):
@@ -432,7 +481,7 @@ class Builder:
             msgs = fixed.messages + [{"role": "assistant", "content": fixed.reply},
                                      {"role": "user", "content": prompts.render("repair.j2", feedback=fixed.feedback)}]
             text = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
-            fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, text), messages=msgs,
+            fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, text, shape), messages=msgs,
                               reply=text)
             self.check_on_drafting(fixed, shape)
             self.report.steps["repair"].tried += 1
@@ -502,7 +551,7 @@ class Builder:
                                 passing.append(fixed)
                                 break
                     if not passing:
-                        self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback}"
+                        self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback.splitlines()[0]}"
                                                     if failing else f"{strategy}: no candidates")
                         continue
                     if fills is None:

@@ -217,6 +217,12 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         missing_t = sorted(t for t in key_tokens(q) if not _token_present(t, text, arg_nums))
         if missing_t:
             problems.append(f"question {i}: {', '.join(missing_t)} missing")
+        short = sorted(t for t in key_tokens(q) if t not in missing_t and _mentions(t, text) < _mentions(t, q))
+        if short:  # a name the question states in several facts (a swap, a clue) must be copied for each
+            problems.append(f"question {i}: {', '.join(short)} stated more often than copied")
+        extra = sorted(t for t in key_tokens(q) if _mentions(t, text) > _mentions(t, q))
+        if extra:  # e.g. an "asked" field that repeats one of the items when the question asks about all
+            problems.append(f"question {i}: {', '.join(extra)} copied more often than stated")
         q_counts: dict[float, int] = {}
         for n in number_list(q):
             q_counts[n] = q_counts.get(n, 0) + 1
@@ -237,6 +243,44 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
     return problems
 
 
+def _paths(value: Any, path: str = "") -> Any:
+    """(path, value) for every value inside an argument object; list items share the path `key[]`."""
+    yield path, value
+    if isinstance(value, dict):
+        for k, v in value.items():
+            yield from _paths(v, f"{path}.{k}" if path else k)
+    elif isinstance(value, list):
+        for v in value:
+            yield from _paths(v, f"{path}[]")
+
+
+def answer_paths(objects: list[Any], answers: list[Any]) -> list[str]:
+    """Where a text answer is found among the arguments in every example (e.g. `crew[].name`: the answer is
+    one of the crew's names); places that list each value once (the items themselves, not events about them)
+    first, then shortest first. Empty when answers are not texts or no place fits every example."""
+    common: set[str] | None = None
+    for obj, ans in zip(objects, answers):
+        if not isinstance(ans, str) or len(ans.strip()) < 2:
+            return []
+        want = ans.strip().lower()
+        found = {p for p, v in _paths(obj) if p and isinstance(v, str) and v.strip().lower() == want}
+        common = found if common is None else common & found
+
+    def repeats(path: str) -> bool:
+        for obj in objects:
+            values = [str(v).strip().lower() for p, v in _paths(obj) if p == path]
+            if len(values) != len(set(values)):
+                return True
+        return False
+
+    return sorted(common or (), key=lambda p: (repeats(p), len(p), p))
+
+
+def _mentions(token: str, text: str) -> int:
+    """How often a name or code occurs in a text as a whole word, in any case."""
+    return len(re.findall(rf"(?<![A-Za-z0-9]){re.escape(token)}(?![A-Za-z0-9])", text, re.IGNORECASE))
+
+
 def _leaks(question: str, answer: Any, args_text: str, arg_nums: set[float]) -> bool:
     if isinstance(answer, bool) or answer is None:
         return False
@@ -251,6 +295,36 @@ def _leaks(question: str, answer: Any, args_text: str, arg_nums: set[float]) -> 
     if re.fullmatch(r"-?\d+(\.\d+)?", text):
         return _leaks(question, float(text), args_text, arg_nums)
     return text.lower() in args_text.lower() and text.lower() not in question.lower()
+
+
+def _join(pieces: Any) -> dict[str, Any] | None:
+    """Pieces of one argument object (dicts with disjoint keys) as one object; None if they are not that."""
+    if not isinstance(pieces, list) or not pieces or not all(isinstance(p, dict) for p in pieces):
+        return None
+    out: dict[str, Any] = {}
+    for p in pieces:
+        if out.keys() & p.keys():
+            return None
+        out.update(p)
+    return out
+
+
+def merge_pieces(n_questions: int, objects: list[Any]) -> list[Any]:
+    """Join argument objects written in pieces: small builders sometimes give one question's data as several
+    one-field objects, nested in a list or one after another, instead of one object. Joined only when that is
+    unambiguous (a list of pieces per question; or the same run of keys repeated once per question)."""
+    if len(objects) == n_questions and all(isinstance(o, list) for o in objects):
+        joined = [_join(o) for o in objects]
+        return joined if all(j is not None for j in joined) else objects
+    if n_questions and len(objects) > n_questions and len(objects) % n_questions == 0 \
+            and all(isinstance(o, dict) for o in objects):
+        k = len(objects) // n_questions
+        groups = [objects[i * k:(i + 1) * k] for i in range(n_questions)]
+        if len({tuple(tuple(sorted(p)) for p in g) for g in groups}) == 1:
+            joined = [_join(g) for g in groups]
+            if all(j is not None for j in joined):
+                return joined
+    return objects
 
 
 def prune_extras(questions: list[str], answers: list[Any], objects: list[Any]) -> list[Any]:

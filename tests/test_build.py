@@ -158,7 +158,9 @@ def test_failing_draft_goes_to_repair_with_exact_feedback(family, sandbox, tmp_p
     assert tool is not None and tool.verified
     assert report.steps["repair"].tried == 1 and report.steps["repair"].passed == 1
     repair_prompt = builder.calls[-1].messages[-1]["content"]
+    # every drafting example that failed is listed, not only the first
     assert "must return 36 but returned 15" in repair_prompt
+    assert "must return 36 but returned 13" in repair_prompt and "must return 35 but returned 12" in repair_prompt
 
 
 def test_timeouts_are_reported_and_nothing_verifies(family, sandbox, tmp_path):
@@ -250,4 +252,55 @@ def test_strategies_fit_the_data():
     objs = [{"items": ["a", "b"], "k": 1}]
     assert B.applicable_strategies(list(B.STRATEGIES), objs, [3]) == ["direct", "search", "simulate"]
     assert B.applicable_strategies(list(B.STRATEGIES), objs, ["Gull"]) == ["direct", "simulate", "permute"]
+    # a text answer found at one place in the arguments adds choose
+    assert B.applicable_strategies(list(B.STRATEGIES), [{"items": ["Gull", "Tern"]}], ["Tern"]) == \
+        ["direct", "choose", "simulate", "permute"]
     assert B.applicable_strategies(list(B.STRATEGIES), [{"code": "X"}], ["yes"]) == ["direct"]
+
+
+def test_an_arguments_reply_with_stray_brackets_is_read_as_its_pieces():
+    # the bracket slip seen from the 1.5B builder: the list closes after the first question's pieces
+    text = ('{"arguments": [{"crew": ["Nell"]}, {"asked": "tar"}], {"crew": ["Jory"]}, {"asked": "salt"}]}')
+    pieces = B.parse_arguments_reply(text)
+    assert pieces == [{"crew": ["Nell"]}, {"asked": "tar"}, {"crew": ["Jory"]}, {"asked": "salt"}]
+    from runner.shapecheck import merge_pieces
+    assert merge_pieces(2, pieces) == [{"crew": ["Nell"], "asked": "tar"}, {"crew": ["Jory"], "asked": "salt"}]
+    assert B.parse_arguments_reply('```json\n{"arguments": [{"a": 1}]}\n```') == [{"a": 1}]
+    assert B.parse_arguments_reply('{"other": 1}') is None and B.parse_arguments_reply("no JSON") is None
+
+
+# A second toy family (invented) whose answer is a name found in the arguments: the choose strategy.
+SWAPS = [
+    ("Nell has the tar crate and Jory the rope crate. Then Nell and Jory swap. Who has the tar crate?", "Jory",
+     {"crew": [{"name": "Nell", "crate": "tar"}, {"name": "Jory", "crate": "rope"}],
+      "swaps": [{"a": "Nell", "b": "Jory"}], "asked_crate": "tar"}),
+    ("Piran holds the net crate, Cadan the salt crate. No swaps. Who has the salt crate?", "Cadan",
+     {"crew": [{"name": "Piran", "crate": "net"}, {"name": "Cadan", "crate": "salt"}], "swaps": [],
+      "asked_crate": "salt"}),
+    ("Tegen has the bait crate, Elowen the chain crate. Then Tegen and Elowen swap. Who has the chain crate?",
+     "Tegen", {"crew": [{"name": "Tegen", "crate": "bait"}, {"name": "Elowen", "crate": "chain"}],
+               "swaps": [{"a": "Tegen", "b": "Elowen"}], "asked_crate": "chain"}),
+    ("Morwenna has the paint crate, Senara the twine crate. Then Senara and Morwenna swap. Who has the paint crate?",
+     "Senara", {"crew": [{"name": "Morwenna", "crate": "paint"}, {"name": "Senara", "crate": "twine"}],
+                "swaps": [{"a": "Senara", "b": "Morwenna"}], "asked_crate": "paint"}),
+]
+HOLDS = ("```python\ndef holds(x, crew, swaps, asked_crate):\n    state = {c['name']: c['crate'] for c in crew}\n"
+         "    for s in swaps:\n        state[s['a']], state[s['b']] = state[s['b']], state[s['a']]\n"
+         "    return state[x] == asked_crate\n```")
+
+
+def test_choose_strategy_tries_each_candidate_from_the_answers_place(sandbox, tmp_path):
+    f = tmp_path / "swaps.jsonl"
+    f.write_text("".join(json.dumps({"id": f"s{i}", "question": q, "answer": a}) + "\n"
+                         for i, (q, a, _) in enumerate(SWAPS)))
+    family = B.load_family(f, name="crate-swaps", description="who holds the asked crate after the swaps")
+    objects = [a for _, _, a in SWAPS[:3]]
+    table = {q: args for q, _, args in SWAPS}
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [HOLDS]))
+    executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, executor, strategies=["choose"])
+    assert tool is not None and tool.verified and report.strategy == "choose"
+    prompt = builder.calls[-1].messages[-1]["content"]
+    assert "one of the `crew[].name` values" in prompt and "def holds(x, crew, swaps, asked_crate)" in prompt
+    assert sandbox.run(tool.code, SWAPS[3][2]).value == "Senara"

@@ -96,3 +96,63 @@ def test_a_yes_no_answer_copied_into_the_arguments_is_a_leak():
     q = "Does PPKJ5282263 pass the ISO 6346 check digit test?"
     assert any("answer appears" in p for p in S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263", "ok": "yes"}]))
     assert not any("answer appears" in p for p in S.shape_problems([q], ["yes"], [{"code": "PPKJ5282263"}]))
+
+
+def test_a_name_stated_in_several_facts_must_be_copied_for_each():
+    # invented toy question: the start holdings alone drop the swaps the answer depends on
+    q = "Nell has the rope crate and Piran the tar crate. Then Nell and Piran swap crates. Who has the tar crate?"
+    holdings = {"crew": [{"name": "Nell", "crate": "rope"}, {"name": "Piran", "crate": "tar"}]}
+    probs = S.shape_problems([q], ["Nell"], [holdings])
+    assert probs == ["question 1: Nell, Piran stated more often than copied"]
+    assert not S.is_hard(probs[0])  # soft: ranks the proposal lower, does not rule it out
+    full = dict(holdings, swaps=[{"a": "Nell", "b": "Piran"}], asked="tar")
+    assert S.shape_problems([q], ["Nell"], [full]) == []
+
+
+@pytest.mark.parametrize("index", [0, 1])
+def test_the_builders_worked_demonstrations_pass_the_checks(index):
+    """The argument designs shown to the builder as worked demonstrations must themselves be clean."""
+    import json
+    import re
+
+    from runner import prompts
+    user = prompts.render("shape_demo.j2", part="user", index=index)
+    objects = json.loads(prompts.render("shape_demo.j2", part="assistant", index=index))["arguments"]
+    questions = re.findall(r"Question \d+: (.*)", user)
+    assert len(questions) == len(objects) == 3
+    assert S.shape_problems(questions, [None] * 3, objects) == []
+    S.infer_schema(objects)
+
+
+def test_argument_objects_written_in_pieces_are_joined_when_unambiguous():
+    a = [{"crew": ["Nell", "Piran"]}, {"swaps": [["Nell", "Piran"]]}, {"asked": "tar"}]
+    b = [{"crew": ["Jory"]}, {"swaps": []}, {"asked": "salt"}]
+    joined = [{"crew": ["Nell", "Piran"], "swaps": [["Nell", "Piran"]], "asked": "tar"},
+              {"crew": ["Jory"], "swaps": [], "asked": "salt"}]
+    assert S.merge_pieces(2, [a, b]) == joined          # nested: a list of pieces per question
+    assert S.merge_pieces(2, a + b) == joined           # flat: the same run of keys once per question
+    assert S.merge_pieces(2, joined) == joined          # already whole: unchanged
+    uneven = a + [{"crew": ["Jory"]}, {"asked": "salt"}, {"swaps": []}]
+    assert S.merge_pieces(2, uneven) == uneven          # keys in another order: ambiguous, left alone
+    clash = [[{"crew": ["Nell"]}, {"crew": ["Piran"]}], b]
+    assert S.merge_pieces(2, clash) == clash            # a key given twice: not pieces of one object
+
+
+def test_answer_paths_say_where_a_text_answer_is_found_in_every_example():
+    # invented toy data
+    objs = [{"crew": [{"name": "Nell", "crate": "tar"}, {"name": "Jory", "crate": "rope"}],
+             "swaps": [{"from": "Nell", "to": "Jory"}, {"from": "Jory", "to": "Nell"}], "asked_crate": "tar"},
+            {"crew": [{"name": "Piran", "crate": "salt"}, {"name": "Cadan", "crate": "net"}],
+             "swaps": [{"from": "Cadan", "to": "Piran"}, {"from": "Cadan", "to": "Piran"}], "asked_crate": "net"}]
+    # the crew list names each member once; the swaps may name one twice: the list comes first
+    assert S.answer_paths(objs, ["Jory", "Piran"]) == ["crew[].name", "swaps[].to"]
+    assert S.answer_paths(objs, ["Jory", "somebody"]) == []
+    assert S.answer_paths(objs, [3, 4]) == []  # numbers coincide too easily to say anything
+
+
+def test_a_name_copied_more_often_than_stated_is_pruned():
+    # the slip seen on the departures family: an "asked" field naming one boat when the question asks about all
+    extra = dict(GOOD, asked_boat="Kittiwake")
+    probs = S.shape_problems([Q], [17], [extra])
+    assert probs == ["question 1: Kittiwake copied more often than stated"] and not S.is_hard(probs[0])
+    assert S.prune_extras([Q], [17], [extra]) == [GOOD]
