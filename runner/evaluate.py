@@ -29,7 +29,7 @@ from pydantic import BaseModel, Field
 from . import build as build_mod
 from . import prompts, settings
 from .errors import InputError
-from .execute import EXECUTOR_TEMPLATE, answer_with_tool, answers_match, extract_answer
+from .execute import EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, extract_answer
 from .llm import ChatModel, Message
 from .meter import physical_cores
 from .runloop import RunOptions, quantile
@@ -523,7 +523,7 @@ class Evaluator:
             else:
                 key = result_key("split", self.setup.executor_sha, fam.name, task, template, tool_sha(tool),
                                  {"seed": MODEL_SEED, "retries": self.options.retries,
-                                  "retry_temperature": self.options.retry_temperature})
+                                  "retry_temperature": self.options.retry_temperature, "fill": FILL_METHOD})
                 r, new = self._cached_or_run(key, lambda: answer_split(self.setup.executor, tool, task,
                                                                        self.sandbox, self.options))
                 results.append(r)

@@ -54,20 +54,36 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
     return None
 
 
+# How the executor fills arguments (part of the eval's result key): first without a grammar, and only when that
+# reply is not JSON fitting the schema, again under the schema's grammar. Measured on this machine (departures,
+# 8 questions, one thread): the same replies, 3.3 CPU s per fill without the grammar against 4.9 s with it;
+# grammar-constrained sampling over the 151k-token vocabulary is the difference.
+FILL_METHOD = "free-then-schema"
+
+
+def _parse_fill(card: Card, text: str, finish_reason: str) -> tuple[dict[str, Any] | None, str | None]:
+    try:
+        args = json.loads(text)
+    except ValueError:
+        return None, f"executor reply is not JSON ({finish_reason}): {text[:80]!r}"
+    problem = schema_problem(card.schema_, args)
+    return (None, problem) if problem else (args, None)
+
+
 def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int,
                    temperature: float = 0.0) -> Filled:
-    """Ask the executor for the argument object of `question`, constrained by the card's schema."""
-    reply = model.chat(fill_messages(card, question), seed=seed, temperature=temperature,
-                       max_tokens=token_budget(card), schema=card.schema_)
-    try:
-        args = json.loads(reply.text)
-    except ValueError:
-        return Filled(arguments=None, error=f"executor reply is not JSON ({reply.finish_reason}): {reply.text[:80]!r}",
-                      usage=reply.usage, raw=reply.text)
-    problem = schema_problem(card.schema_, args)
-    if problem:
-        return Filled(arguments=None, error=problem, usage=reply.usage, raw=reply.text)
-    return Filled(arguments=args, usage=reply.usage, raw=reply.text)
+    """Ask the executor for the argument object of `question`; if the free reply does not fit the card's
+    schema, ask again constrained by the schema (the cost of both calls is counted)."""
+    messages = fill_messages(card, question)
+    reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card))
+    args, error = _parse_fill(card, reply.text, reply.finish_reason)
+    if args is not None:
+        return Filled(arguments=args, usage=reply.usage, raw=reply.text)
+    usage = reply.usage
+    reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card),
+                       schema=card.schema_)
+    args, error = _parse_fill(card, reply.text, reply.finish_reason)
+    return Filled(arguments=args, error=error, usage=usage + reply.usage, raw=reply.text)
 
 
 # ---- answers ----------------------------------------------------------------------------------------------

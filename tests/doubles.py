@@ -83,3 +83,9 @@ class ScriptedModel:
     def routed(self) -> list[Call]:
         """The calls that were routing calls (their schema is a string enum)."""
         return [c for c in self.calls if c.schema and c.schema.get("type") == "string" and "enum" in c.schema]
+
+
+def is_fill(messages) -> bool:
+    """Whether a chat is the executor filling a tool's arguments (prompts/executor_fill.j2). Fills are asked
+    first without a schema, so scripts tell them apart by their system prompt, not by the schema."""
+    return bool(messages) and messages[0]["content"].startswith("You fill in the arguments")

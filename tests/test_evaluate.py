@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from doubles import ScriptedModel
+from doubles import ScriptedModel, is_fill
 from runner import build as B
 from runner import evaluate as E
 from runner.errors import InputError
@@ -87,7 +87,7 @@ def executor_script(*, wrong_fill=(), bad_fill=(), direct_right=(), fail_on_call
             raise RuntimeError("simulated interruption")
         q = messages[-1]["content"]
         tid = ID.get(q, "")
-        if schema is not None:
+        if is_fill(messages):
             if tid in bad_fill:
                 return "{not json"
             args = dict(ARGS[q])
@@ -231,11 +231,13 @@ def test_per_method_accuracy_costs_and_break_even(tmp_path, sandbox):
     # the build cost is the stored report's CPU (a tool store hit: the builder was never asked to build)
     assert split.build_cpu == 32.0 and report.builds[0].cache_hit and report.builds[0].verified
     assert all("step by step" in c.system or "Reply with the answer only" in c.system for c in builder.calls)
-    assert len(builder.calls) == 12 and len(executor.calls) == 6 + 1 + 6  # t6 is filled twice (one retry)
+    # six direct answers, five good fills, and t6's unusable fill: each of its two attempts (one retry) asks
+    # freely first, then again under the schema
+    assert len(builder.calls) == 12 and len(executor.calls) == 6 + 5 + 2 * 2
     for method in ("executor-direct", "builder-direct", "builder-steps"):
         assert split.break_even[method] == E.break_even(32.0, split.cpu_mean, row(report, method).cpu_mean)
     # the direct prompt: the five solved examples as earlier turns, answers only
-    first = next(c for c in executor.calls if c.schema is None)
+    first = next(c for c in executor.calls if not is_fill(c.messages))
     assert [m["role"] for m in first.messages] == ["system"] + ["user", "assistant"] * 5 + ["user"]
     assert first.messages[2]["content"] == "36" and first.temperature == 0.0
     assert report.computed == 24 and report.reused == 0
@@ -256,7 +258,7 @@ def test_resume_after_interruption_computes_only_missing_tasks(tmp_path, sandbox
         again = ScriptedModel("executor", executor_script(direct_right={"t2"}))
         resumed = run_eval(tmp_path, [fam], setup_of(again, ScriptedModel("builder", [])), sandbox, store, methods)
     assert len(again.calls) == 12 - 3
-    split_questions = [c.last_user for c in again.calls if c.schema is not None]
+    split_questions = [c.last_user for c in again.calls if is_fill(c.messages)]
     assert len(split_questions) == 3 and not set(split_questions) & set(done)
     assert (resumed.computed, resumed.reused) == (9, 3)
     for method in methods:

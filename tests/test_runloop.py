@@ -25,7 +25,7 @@ from runner.runloop import (Engine, RunLoop, RunOptions, Setup, StopFlag, ask, d
 from runner.sandbox import Sandbox
 from runner.tools import Card, Demo, Provenance, Tool
 from conftest import ROOT, need_models
-from doubles import ScriptedModel
+from doubles import ScriptedModel, is_fill
 
 JW = str(Path(sys.executable).with_name("jigwright"))
 
@@ -64,12 +64,12 @@ def scripted(fill_override=None, direct: str = "Thinking.\nAnswer: 7", route_ove
             tool = "add" if question.startswith("Add") else "shout" if question.startswith("Shout") else "none"
             assert tool in schema["enum"]
             return json.dumps(tool)
-        if schema is not None:
+        if is_fill(messages):
             if fill_override:
                 out = fill_override(question, seed=seed, temperature=temperature)
                 if out is not None:
                     return out
-            if "a" in schema["properties"]:
+            if question.startswith("Add"):
                 a, b = map(int, re.findall(r"-?\d+", question)[:2])
                 return json.dumps({"a": a, "b": b})
             return json.dumps({"word": question.split()[1].strip(".")})
@@ -134,12 +134,33 @@ def test_schema_failure_retries_once_with_another_seed(tmp_path, sandbox):
 
     def fill(question, seed, temperature):
         seen.append((seed, temperature))
-        return '{"a": "two", "b": 3}' if len(seen) == 1 else None
+        return '{"a": "two", "b": 3}' if len(seen) <= 2 else None
 
     q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "Add 2 and 3."}])
-    _, recs = run_file(q, tmp_path / "out.jsonl", scripted(fill), sandbox, RunOptions(fallback="none", seed=11))
-    assert seen == [(11, 0.0), (12, 0.3)]
+    model = scripted(fill)
+    _, recs = run_file(q, tmp_path / "out.jsonl", model, sandbox, RunOptions(fallback="none", seed=11))
+    # attempt 1: a free reply, then one under the schema, both unusable; attempt 2: another seed, warmer
+    assert seen == [(11, 0.0), (11, 0.0), (12, 0.3)]
+    fills = [c for c in model.calls if is_fill(c.messages)]
+    assert [c.schema is not None for c in fills] == [False, True, False]
     assert (recs[0]["status"], recs[0]["answer"], recs[0]["attempts"]) == ("tool", 5, 2)
+
+
+def test_a_free_fill_that_misses_the_schema_is_asked_again_under_it(tmp_path, sandbox):
+    seen = []
+
+    def fill(question, seed, temperature):
+        seen.append(seed)
+        return '{"a": 2, "b": 3, "note": "sum"}' if len(seen) == 1 else None  # an extra key: not the schema
+
+    q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "Add 2 and 3."}])
+    model = scripted(fill)
+    _, recs = run_file(q, tmp_path / "out.jsonl", model, sandbox, RunOptions(fallback="none", seed=11))
+    fills = [c for c in model.calls if is_fill(c.messages)]
+    assert [c.schema is not None for c in fills] == [False, True] and seen == [11, 11]
+    assert (recs[0]["status"], recs[0]["answer"], recs[0]["attempts"]) == ("tool", 5, 1)
+    # both fills are paid for: the double counts a word as a token (route 1, free fill 6, schema fill 4)
+    assert recs[0]["tokens"]["completion"] == 1 + 6 + 4
 
 
 def test_tool_error_retries_then_falls_back(tmp_path, sandbox):
@@ -389,9 +410,10 @@ def test_grouped_order_answers_every_task_and_reuses_prefixes(tmp_path, sandbox)
     plain, recs_p = run_file(q, tmp_path / "p.jsonl", plain_model, sandbox, RunOptions(fallback="executor", group=False))
     assert {r["id"]: r["answer"] for r in recs_g} == {r["id"]: r["answer"] for r in recs_p}
     # grouped: all routing first, then fills tool by tool, then the fallback
-    kinds = ["route" if c.schema and "enum" in c.schema else "fill" if c.schema else "direct" for c in grouped_model.calls]
+    kinds = ["route" if c.schema and "enum" in c.schema else "fill" if is_fill(c.messages) else "direct"
+             for c in grouped_model.calls]
     assert kinds == ["route"] * 9 + ["fill"] * 8 + ["direct"]
-    fill_tools = [c.system for c in grouped_model.calls if c.schema and "enum" not in c.schema]
+    fill_tools = [c.system for c in grouped_model.calls if is_fill(c.messages)]
     assert fill_tools == sorted(fill_tools)
     assert grouped.tokens.cached > plain.tokens.cached
     assert grouped.savings.cpu_seconds_saved > plain.savings.cpu_seconds_saved
