@@ -50,3 +50,12 @@ def bare_home(tmp_path, monkeypatch) -> Path:
     home.mkdir()
     monkeypatch.setenv("JIGWRIGHT_HOME", str(home))
     return home
+
+
+@pytest.fixture(autouse=True)
+def _fresh_fill_policy():
+    """Each test starts with free fills for every tool (the executor remembers misses within a process)."""
+    from runner.execute import forget_fill_misses
+
+    forget_fill_misses()
+    yield

@@ -231,9 +231,9 @@ def test_per_method_accuracy_costs_and_break_even(tmp_path, sandbox):
     # the build cost is the stored report's CPU (a tool store hit: the builder was never asked to build)
     assert split.build_cpu == 32.0 and report.builds[0].cache_hit and report.builds[0].verified
     assert all("step by step" in c.system or "Reply with the answer only" in c.system for c in builder.calls)
-    # six direct answers, five good fills, and t6's unusable fill: each of its two attempts (one retry) asks
-    # freely first, then again under the schema
-    assert len(builder.calls) == 12 and len(executor.calls) == 6 + 5 + 2 * 2
+    # six direct answers, five good fills, and t6's unusable fill: its first attempt asks freely, then under the
+    # schema; its retry (and any later fill of this tool) goes straight to the schema
+    assert len(builder.calls) == 12 and len(executor.calls) == 6 + 5 + 2 + 1
     for method in ("executor-direct", "builder-direct", "builder-steps"):
         assert split.break_even[method] == E.break_even(32.0, split.cpu_mean, row(report, method).cpu_mean)
     # the direct prompt: the five solved examples as earlier turns, answers only

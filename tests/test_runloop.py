@@ -139,10 +139,11 @@ def test_schema_failure_retries_once_with_another_seed(tmp_path, sandbox):
     q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "Add 2 and 3."}])
     model = scripted(fill)
     _, recs = run_file(q, tmp_path / "out.jsonl", model, sandbox, RunOptions(fallback="none", seed=11))
-    # attempt 1: a free reply, then one under the schema, both unusable; attempt 2: another seed, warmer
+    # attempt 1: a free reply, then one under the schema, both unusable; attempt 2: another seed, warmer, and
+    # under the schema at once (this tool's free fill has missed)
     assert seen == [(11, 0.0), (11, 0.0), (12, 0.3)]
     fills = [c for c in model.calls if is_fill(c.messages)]
-    assert [c.schema is not None for c in fills] == [False, True, False]
+    assert [c.schema is not None for c in fills] == [False, True, True]
     assert (recs[0]["status"], recs[0]["answer"], recs[0]["attempts"]) == ("tool", 5, 2)
 
 
@@ -161,6 +162,14 @@ def test_a_free_fill_that_misses_the_schema_is_asked_again_under_it(tmp_path, sa
     assert (recs[0]["status"], recs[0]["answer"], recs[0]["attempts"]) == ("tool", 5, 1)
     # both fills are paid for: the double counts a word as a token (route 1, free fill 6, schema fill 4)
     assert recs[0]["tokens"]["completion"] == 1 + 6 + 4
+    # after that miss, this tool's next fill goes straight to the schema; another tool still starts free
+    q2 = write_queue(tmp_path / "q2.jsonl", [{"id": "b", "question": "Add 4 and 4."},
+                                             {"id": "c", "question": "Shout moor."}])
+    model2 = scripted()
+    _, recs2 = run_file(q2, tmp_path / "out2.jsonl", model2, sandbox, RunOptions(fallback="none"))
+    fills2 = {c.last_user: c.schema is not None for c in model2.calls if is_fill(c.messages)}
+    assert fills2 == {"Add 4 and 4.": True, "Shout moor.": False}
+    assert [r["answer"] for r in recs2] == [8, "MOOR"]
 
 
 def test_tool_error_retries_then_falls_back(tmp_path, sandbox):
