@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Any, Callable, Literal, Protocol
 
 import diskcache
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, Field, computed_field
 
 from . import build as build_mod
 from . import prompts, settings
@@ -245,6 +245,13 @@ class MethodRow(BaseModel):
     note: str = ""
     flagged: bool = False
     results: list[ScoredTask] = Field(default_factory=list)
+
+    @computed_field  # in eval.json too
+    @property
+    def cpu_per_correct(self) -> float | None:
+        """CPU seconds per right answer (all tasks' CPU over the right ones; the split's build not included):
+        what an answer worth having costs, where CPU s/task alone rewards answering fast and wrong."""
+        return round(self.cpu_mean * self.tasks / self.correct, 3) if self.correct else None
 
 
 class Machine(BaseModel):
@@ -479,8 +486,9 @@ class Evaluator:
             failed = self.cache.failed_build(key)
             if failed is not None:
                 return None, failed.model_copy(update={"cache_hit": True})
-            self.progress.message(f"{fam.name}: no tool in the tool store for this build yet; building it "
-                                  f"(the builder's cost is counted as the split's build cost)")
+            if self.store.failed(key) is None:  # else the build below returns the remembered failure at once
+                self.progress.message(f"{fam.name}: no tool in the tool store for this build yet; building it "
+                                      f"(the builder's cost is counted as the split's build cost)")
         steps_seen: list[str] = []
 
         def on_step(step: str, note: str) -> None:
@@ -670,7 +678,8 @@ def _fmt_cpu(x: float) -> str:
 
 
 def table_columns(report: EvalReport) -> list[str]:
-    cols = ["family", "method", "model", "accuracy", "95% CI", "CPU s/task", "p95", "tokens/task"]
+    cols = ["family", "method", "model", "accuracy", "95% CI", "CPU s/task", "p95", "CPU s per right answer",
+            "tokens/task"]
     if "split" in report.methods:
         cols.append("build CPU s")
         cols += [f"break-even vs {m}" for m in report.methods if m in DIRECT]
@@ -682,7 +691,8 @@ def table_rows(report: EvalReport) -> list[list[str]]:
     out = []
     for r in report.rows:
         cells = [r.family, r.method, r.model, f"{r.accuracy:.2f} ({r.correct}/{r.tasks})",
-                 f"{r.ci_low:.2f}–{r.ci_high:.2f}", _fmt_cpu(r.cpu_mean), _fmt_cpu(r.cpu_p95), f"{r.tokens_mean:.0f}"]
+                 f"{r.ci_low:.2f}–{r.ci_high:.2f}", _fmt_cpu(r.cpu_mean), _fmt_cpu(r.cpu_p95),
+                 _fmt_cpu(r.cpu_per_correct) if r.cpu_per_correct is not None else "none right", f"{r.tokens_mean:.0f}"]
         if "split" in report.methods:
             cells.append(_fmt_cpu(r.build_cpu) if r.build_cpu is not None else "")
             for m in report.methods:
@@ -720,7 +730,8 @@ def markdown(report: EvalReport) -> str:
         f"chat turns, at most {DIRECT_MAX_TOKENS} tokens. *builder-steps*: the builder reasons step by step and "
         f"ends with \"Answer: …\", at most {STEPS_MAX_TOKENS} tokens.",
         "- Accuracy with a 95% Wilson score interval. CPU s/task: model calls (all threads of this process) plus "
-        "the tool's run in the sandbox; model loading is not included. Tokens: prompt + generated. The first task "
+        "the tool's run in the sandbox; model loading is not included. CPU s per right answer: all the tasks' "
+        "CPU over the right answers (build not included). Tokens: prompt + generated. The first task "
         "of a method pays for its shared prompt prefix; later tasks reuse it from llama.cpp's cache, as in a run.",
         "- Build CPU s: builder and executor CPU of the build, from its stored report (also when the tool came "
         "from the tool store). Break-even: the number of tasks after which build + split per task costs less CPU "

@@ -221,6 +221,9 @@ def test_per_method_accuracy_costs_and_break_even(tmp_path, sandbox):
         assert r.cpu_mean > 0 and r.cpu_p95 >= r.cpu_mean * 0.5 and r.tokens_mean > 0
         assert {s.id for s in r.results} == {t[0] for t in TASKS}
         assert {s.id for s in r.results if s.correct} >= ({"t1", "t2"} if method != "split" else {"t1", "t4"})
+        # CPU per right answer: every task's CPU over the right ones
+        assert r.cpu_per_correct == pytest.approx(sum(s.cpu for s in r.results) / k, rel=1e-2)
+        assert json.loads(report.model_dump_json())["rows"][0]["cpu_per_correct"] is not None
 
     split = row(report, "split")
     wrong = next(s for s in split.results if s.id == "t5")
