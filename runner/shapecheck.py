@@ -62,6 +62,11 @@ def _arg_numbers(value: Any) -> list[float]:
     return []
 
 
+def invented_numbers(question: str, arguments: Any) -> list[float]:
+    """Numbers in an argument object that the question does not state (sorted, each once)."""
+    return sorted(set(_arg_numbers(arguments)) - numbers_in(question))
+
+
 def _flatten(value: Any) -> str:
     return json.dumps(value, ensure_ascii=False)
 

@@ -680,3 +680,24 @@ def test_score_answers_counts_routes_and_answers():
     assert s.wrong == ["a: expected 4, got 3 via container-codes"]
     # with no container-codes tool in the store, the right route for "a" is none
     assert score_answers(recs, exp, available={"departures"}).routed_right == 2
+
+
+def test_arguments_with_numbers_the_question_does_not_state_send_the_task_to_the_fallback(tmp_path, sandbox):
+    # the add tool's demos copy their numbers literally; a fill that makes one up means the tool does not fit
+    q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "Add 2 and 3."},
+                                           {"id": "b", "question": "Add 4 and 4."}])
+    made_up = scripted(lambda question, **kw: json.dumps({"a": 2, "b": 2027}) if question == "Add 2 and 3." else None)
+    _, recs = run_file(q, tmp_path / "out.jsonl", made_up, sandbox, RunOptions(fallback="executor"))
+    by_id = {r["id"]: r for r in recs}
+    assert by_id["a"]["status"] == "fallback" and not by_id["a"]["tool_backed"]
+    assert by_id["a"]["route"] == "add" and "does not fit" in by_id["a"]["error"] and "2027" in by_id["a"]["error"]
+    assert (by_id["b"]["status"], by_id["b"]["answer"]) == ("tool", 8)
+    # a tool whose own demos hold numbers their questions do not state (a month written as a word, say) is
+    # not judged this way
+    words = make_tool("count", "def solve(month):\n    return month\n",
+                      {"type": "object", "properties": {"month": {"type": "integer"}}, "required": ["month"],
+                       "additionalProperties": False},
+                      [("Which month is March?", {"month": 3}), ("Which month is May?", {"month": 5})])
+    from runner.runloop import Engine
+    assert Engine.misfit(words, "Which month is June?", {"month": 6}) is None
+    assert "does not fit" in Engine.misfit(ADD, "Add 2 and 3.", {"a": 2, "b": 2027})
