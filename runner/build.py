@@ -190,6 +190,7 @@ class ShapeCandidate:
     objects: list[dict[str, Any]]
     problems: list[str]
     schema: dict[str, Any] | None = None
+    answer_from: str = ""  # where a text answer sits in every drafting example's arguments ("" if nowhere)
 
 
 @dataclass
@@ -407,11 +408,16 @@ class Builder:
                     soft.append((len(problems), i, objects))
                 continue
             self.report.steps["shape"].passed += 1
-            yield ShapeCandidate(objects=objects, problems=[], schema=shapecheck.infer_schema(objects))
+            yield self.shape_candidate(objects, [])
         for n_problems, i, objects in sorted(soft, key=lambda t: (t[0], t[1])):
             self.progress("shape", f"trying sample {i + 1} despite {n_problems} soft problem(s)")
-            yield ShapeCandidate(objects=objects, problems=[f"{n_problems} soft"],
-                                 schema=shapecheck.infer_schema(objects))
+            yield self.shape_candidate(objects, [f"{n_problems} soft"])
+
+    def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str]) -> ShapeCandidate:
+        """An argument design ready to draft from: its inferred schema and where a text answer sits in it."""
+        answer_from = next(iter(shapecheck.answer_paths(objects, [e.answer for e in self.drafting])), "")
+        return ShapeCandidate(objects=objects, problems=problems, schema=shapecheck.infer_schema(objects),
+                              answer_from=answer_from)
 
     # -- draft and repair
     def draft_messages(self, shape: ShapeCandidate, strategy: str) -> list[Message]:
@@ -421,20 +427,16 @@ class Builder:
         user = prompts.render("draft.j2", description=self.family.description, schema=shape.schema,
                               examples=examples, strategy=strategy, signature=_signature(shape.schema),
                               answer_type=_answer_type([e.answer for e in self.drafting]),
-                              answer_from=self.answer_from(shape))
+                              answer_from=shape.answer_from)
         return [{"role": "system", "content": prompts.render("draft_system.j2")},
                 {"role": "user", "content": user}]
-
-    def answer_from(self, shape: ShapeCandidate) -> str:
-        """Where the answer is found in the arguments of every drafting example ("" if nowhere or not text)."""
-        return next(iter(shapecheck.answer_paths(shape.objects, [e.answer for e in self.drafting])), "")
 
     def assemble(self, strategy: str, reply: str, shape: ShapeCandidate) -> str:
         code = add_missing_imports(extract_code(reply))
         if strategy == "search":
             code = code.rstrip() + "\n" + SEARCH_SOLVE
         elif strategy == "choose":
-            code = code.rstrip() + "\n" + CHOOSE_SOLVE.replace("PATH", repr(self.answer_from(shape)))
+            code = code.rstrip() + "\n" + CHOOSE_SOLVE.replace("PATH", repr(shape.answer_from))
         return code
 
     def check_on_drafting(self, cand: Candidate, shape: ShapeCandidate) -> None:

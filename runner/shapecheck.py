@@ -219,13 +219,15 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         missing_n = sorted(numbers_in(q) - arg_nums)
         if missing_n:
             problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in missing_n)} are missing")
-        missing_t = sorted(t for t in key_tokens(q) if not _token_present(t, text, arg_nums))
+        tokens = key_tokens(q)
+        missing_t = sorted(t for t in tokens if not _token_present(t, text, arg_nums))
         if missing_t:
             problems.append(f"question {i}: {', '.join(missing_t)} missing")
-        short = sorted(t for t in key_tokens(q) if t not in missing_t and _mentions(t, text) < _mentions(t, q))
+        stated = {t: (_mentions(t, q), _mentions(t, text)) for t in tokens}  # (in the question, copied)
+        short = sorted(t for t, (n_q, n_a) in stated.items() if t not in missing_t and n_a < n_q)
         if short:  # a name the question states in several facts (a swap, a clue) must be copied for each
             problems.append(f"question {i}: {', '.join(short)} stated more often than copied")
-        extra = sorted(t for t in key_tokens(q) if _mentions(t, text) > _mentions(t, q))
+        extra = sorted(t for t, (n_q, n_a) in stated.items() if n_a > n_q)
         if extra:  # e.g. an "asked" field that repeats one of the items when the question asks about all
             problems.append(f"question {i}: {', '.join(extra)} copied more often than stated")
         q_counts: dict[float, int] = {}
@@ -235,8 +237,8 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         for n in _arg_numbers(obj):
             a_counts[n] = a_counts.get(n, 0) + 1
         leaked = _leaks(q, ans, text, arg_nums)
-        invented = sorted(n for n in a_counts if n not in q_counts
-                          and not (leaked and isinstance(ans, (int, float)) and n == float(ans)))
+        invented = [n for n in invented_numbers(q, obj)
+                    if not (leaked and isinstance(ans, (int, float)) and n == float(ans))]
         if invented:
             problems.append(f"question {i}: numbers {', '.join(f'{n:g}' for n in invented)} are not in the question")
         doubled = sorted(n for n, c in a_counts.items() if n in q_counts and c > q_counts[n])
