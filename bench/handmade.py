@@ -34,6 +34,22 @@ def arr(items: dict[str, Any]) -> dict[str, Any]:
     return {"type": "array", "items": items}
 
 
+# Tool code runs as self-contained text in the sandbox, so the two check-digit tools each carry this part.
+ISO6346_CHECK_DIGIT = '''
+import string
+
+def check_digit(code10):
+    values, v = {}, 10
+    for letter in string.ascii_uppercase:
+        if v % 11 == 0:
+            v += 1
+        values[letter] = v
+        v += 1
+    total = sum((values[c] if c.isalpha() else int(c)) * 2 ** i for i, c in enumerate(code10))
+    return total % 11 % 10
+
+'''
+
 CODE = {
     "departures": '''
 def solve(boats):
@@ -54,33 +70,14 @@ def solve(start, end, holidays):
     days = (first + dt.timedelta(days=i) for i in range((last - first).days + 1))
     return sum(1 for d in days if d.weekday() < 5 and d not in off)
 ''',
-    "container_codes": '''
-import string
-
+    "container_codes": ISO6346_CHECK_DIGIT + '''
 def solve(code):
-    values, v = {}, 10
-    for letter in string.ascii_uppercase:
-        if v % 11 == 0:
-            v += 1
-        values[letter] = v
-        v += 1
-    code = code.strip().upper()[:10]
-    total = sum((values[c] if c.isalpha() else int(c)) * 2 ** i for i, c in enumerate(code))
-    return total % 11 % 10
+    return check_digit(code.strip().upper()[:10])
 ''',
-    "container_valid": '''
-import string
-
+    "container_valid": ISO6346_CHECK_DIGIT + '''
 def solve(code):
-    values, v = {}, 10
-    for letter in string.ascii_uppercase:
-        if v % 11 == 0:
-            v += 1
-        values[letter] = v
-        v += 1
     code = code.strip().upper()
-    total = sum((values[c] if c.isalpha() else int(c)) * 2 ** i for i, c in enumerate(code[:10]))
-    return "yes" if len(code) == 11 and str(total % 11 % 10) == code[10] else "no"
+    return "yes" if len(code) == 11 and str(check_digit(code[:10])) == code[10] else "no"
 ''',
     "berth_order": '''
 from itertools import permutations
