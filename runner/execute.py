@@ -56,10 +56,11 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 
 # How the executor fills arguments (part of the eval's result key): first without a grammar, and only when that
 # reply is not JSON fitting the schema, again under the schema's grammar; once a tool's free reply has missed,
-# that tool's later fills in this process go straight to the grammar. Measured on this machine (one thread):
-# departures gave the same replies free, 3.3 CPU s per fill against 4.9 s under the grammar (grammar-constrained
-# sampling over the 151k-token vocabulary is the difference); manifest_order's free replies left labels
-# unquoted in 4 of 6 fills, so paying for both calls every time would cost more than the grammar alone.
+# that tool's later fills in this process go straight to the grammar. Measured with bench/fill_bench.py (one
+# thread, 8 fills each): departures gave the same replies free, 3.5 CPU s per fill against 4.8 s under the
+# grammar (grammar-constrained sampling over the 151k-token vocabulary is the difference); manifest_order's
+# free replies fit the schema in 4 of 8 (labels left unquoted), so paying for both calls every time (2.3 + half
+# of 3.6 s) would cost more than the grammar alone.
 FILL_METHOD = "free-then-schema, schema after a miss"
 _FREE_MISSED: set[str] = set()  # schemas whose free fill has missed once in this process
 
