@@ -31,7 +31,7 @@ from runner.runloop import RunOptions, Setup, run_queue  # noqa: E402
 
 
 def record_calls(model):
-    """Wrap model.chat on the instance (it stays a LocalModel) to keep each call's token sequences."""
+    """Replace model.chat on the instance (it stays a LocalModel) with one that keeps each call's token sequences."""
     calls: list[dict] = []
     inner = model.chat
 
