@@ -35,11 +35,11 @@ tools: models
 
 demo: models
 	$(JW) models list
-	$(JW) models prompt coder-1.5b "In one sentence: what does a harbour master do?"
-	$(JW) models prompt coder-0.5b "In one sentence: what does a harbour master do?"
+	$(JW) models try coder-1.5b "In one sentence: what does a harbour master do?"
+	$(JW) models try coder-0.5b "In one sentence: what does a harbour master do?"
 	$(MAKE) --no-print-directory tools
 	rm -f demo-answers.jsonl
-	$(JW) run samples/queue.jsonl --out demo-answers.jsonl --fallback executor --expected samples/queue_expected.jsonl
+	$(JW) answer samples/queue.jsonl --out demo-answers.jsonl --fallback executor --expected samples/queue_expected.jsonl
 
 # The full comparison (about an hour here; every task result is cached, so an interrupted run resumes).
 eval: tools

@@ -148,7 +148,7 @@ SCHEMA = {
 def _departures(p: dict, q: str) -> dict:
     # boat names in the order the question gives them
     found = re.findall(r"(?:The )?([A-Z][a-z]+)(?::| (?:leaves|departs|sails))", q)
-    found = [n for n in found if n not in ("Saltmarsh", "Minutes", "The")]
+    found = [n for n in found if n not in ("Kelpwick", "Quay", "Minutes", "The")]
     return {"boats": [{"name": n, "start": s, "period": per} for n, s, per in zip(found, p["starts"], p["periods"])]}
 
 

@@ -14,7 +14,7 @@ from runner import models, settings  # noqa: E402
 from runner.llm import LocalModel  # noqa: E402
 from runner.meter import Stopwatch  # noqa: E402
 
-PROMPT = ("The Saltmarsh Harbour Co-operative keeps a yard of containers, a fuel berth and a slipway. " * 12).strip()
+PROMPT = ("The Kelpwick Quay Co-operative keeps a yard of containers, a fuel berth and a slipway. " * 12).strip()
 
 
 def measure(role: str) -> dict:

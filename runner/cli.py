@@ -19,7 +19,7 @@ from .errors import BuildFailedError, JigwrightError
 app = typer.Typer(add_completion=False, no_args_is_help=True,
                   help="Jigwright: a builder model writes verified tools from solved examples; "
                        "an executor model answers later questions by filling their arguments. Offline, on CPU.")
-models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, inspect.")
+models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, read the header, try one.")
 app.add_typer(models_app, name="models")
 
 out = Console()
@@ -27,7 +27,7 @@ err = Console(stderr=True)
 STATE = {"verbose": False}
 
 CAUTION = ("Caution: tools are Python written by a small local model. Review a tool before relying on it "
-           "(`jigwright tools show NAME`); small models make mistakes; do not use the answers for "
+           "(`jigwright tools review NAME`); small models make mistakes; do not use the answers for "
            "safety-critical decisions without review.")
 
 
@@ -117,10 +117,10 @@ def models_add(path: Path = typer.Argument(..., help="A GGUF file you already ha
               f"for {', '.join(spec.roles)}; use it with --builder/--executor {spec.name}")
 
 
-@models_app.command("info")
-def models_info(name: str = typer.Argument(..., help="Model name."),
-                as_json: bool = typer.Option(False, "--json")) -> None:
-    """GGUF facts read from the file header."""
+@models_app.command("header")
+def models_header(name: str = typer.Argument(..., help="Model name."),
+                  as_json: bool = typer.Option(False, "--json")) -> None:
+    """GGUF header facts, under the metadata keys the format gives them."""
     spec = models.get(settings.load_registry(), name)
     path = spec.path()
     if not path.exists():
@@ -130,13 +130,19 @@ def models_info(name: str = typer.Argument(..., help="Model name."),
         out.print_json(json.dumps(facts))
         return
     t = Table(title=f"{name} ({path.name})", show_header=False)
-    for k, v in facts.items():
-        t.add_row(k, str(v))
+    for k, v in facts["keys"].items():
+        if k == "tokenizer.chat_template" and v is not None:
+            v = f"present ({len(v):,} characters; --json prints it)"
+        t.add_row(k, "(absent)" if v is None else str(v))
+    t.add_row("quantization (from general.file_type)", str(facts["quantization"]))
+    t.add_row("GGUF version", str(facts["gguf_version"]))
+    t.add_row("tensors", f"{facts['tensor_count']:,}")
+    t.add_row("metadata keys", f"{facts['metadata_key_count']:,}")
     out.print(t)
 
 
-@models_app.command("prompt")
-def models_prompt(name: str = typer.Argument(..., help="Model name."),
+@models_app.command("try")
+def models_try(name: str = typer.Argument(..., help="Model name."),
                   text: str = typer.Argument(..., help="What to ask."),
                   max_tokens: int = typer.Option(64, "--max-tokens"),
                   seed: int = typer.Option(0, "--seed")) -> None:
@@ -154,7 +160,7 @@ def models_prompt(name: str = typer.Argument(..., help="Model name."),
 
 # ---- build and tools -----------------------------------------------------------------------------------------
 
-tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, show, export, remove built tools.")
+tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire built tools.")
 app.add_typer(tools_app, name="tools")
 
 
@@ -245,7 +251,7 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
         if report.cache_hit:
             err.print("(this exact build failed before; `--force` tries again, or change --seed or --samples)")
         raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
-                               + (" (an unverified best attempt is kept: `jigwright tools show " + family.name + "`)"
+                               + (" (an unverified best attempt is kept: `jigwright tools review " + family.name + "`)"
                                   if tool else ""))
 
 
@@ -269,8 +275,8 @@ def tools_list(as_json: bool = typer.Option(False, "--json")) -> None:
     out.print(t)
 
 
-@tools_app.command("show")
-def tools_show(name: str, as_json: bool = typer.Option(False, "--json")) -> None:
+@tools_app.command("review")
+def tools_review(name: str, as_json: bool = typer.Option(False, "--json")) -> None:
     """A tool's code, argument schema, usage card and verification results."""
     from rich.syntax import Syntax
 
@@ -309,17 +315,17 @@ def tools_export(name: str, directory: Path) -> None:
         out.print(f"wrote {p}")
 
 
-@tools_app.command("rm")
-def tools_rm(name: str) -> None:
-    """Remove a tool from the tool store."""
+@tools_app.command("retire")
+def tools_retire(name: str) -> None:
+    """Take a tool out of the tool store."""
     from .store import ToolStore
 
     with ToolStore() as store:
         store.remove(name)
-    out.print(f"removed '{name}'")
+    out.print(f"retired '{name}'")
 
 
-# ---- run and ask ---------------------------------------------------------------------------------------------
+# ---- answer and ask------------------------------------------------------------------------------------------
 
 class _RunProgress:
     """The run loop's progress as a rich bar on stderr (a spinner while following a file)."""
@@ -393,8 +399,8 @@ def _print_report(report, console: Console) -> None:
         console.print("[yellow]interrupted: rerun the same command to answer the rest[/yellow]")
 
 
-@app.command("run")
-def run_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \"question\"} per line), or - for stdin."),
+@app.command("answer")
+def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\", \"question\"} per line), or - for stdin."),
             out_file: Optional[str] = typer.Option(None, "--out", "-o", help="Answers file (JSONL, appended and resumed; "
                                               "default QUEUE.answers.jsonl); - for stdout."),
             follow: bool = typer.Option(False, "--follow", "-f", help="Keep reading the queue as lines are appended (stop with Ctrl-C)."),
@@ -541,8 +547,8 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
               f"wrote {', '.join(report.files.values())}", highlight=False)
 
 
-@app.command("doctor")
-def doctor() -> None:
+@app.command("checkup")
+def checkup() -> None:
     """What this machine offers Jigwright: cores, models, sandbox isolation."""
     from .meter import physical_cores
     from .sandbox import network_isolation

@@ -725,7 +725,7 @@ def markdown(report: EvalReport) -> str:
         "",
         "- *split*: the tool that `jigwright build` makes from examples.jsonl, its arguments filled by the executor "
         "(one retry, as in the run loop). Tasks go straight to their family's tool: routing and the fallback are "
-        "not part of this number (the run report of `jigwright run` measures them).",
+        "not part of this number (the run report of `jigwright answer` measures them).",
         "- *executor-direct*, *builder-direct*: the model answers with no tool, the family's examples as earlier "
         f"chat turns, at most {DIRECT_MAX_TOKENS} tokens. *builder-steps*: the builder reasons step by step and "
         f"ends with \"Answer: …\", at most {STEPS_MAX_TOKENS} tokens.",
@@ -753,8 +753,19 @@ def _atomic(path: Path, write: Callable[[Path], None]) -> None:
         raise
 
 
-STYLES = {"split": ("#2a9d8f", "o"), "executor-direct": ("#457b9d", "s"), "builder-direct": ("#e9a23b", "^"),
-          "builder-steps": ("#d62828", "D")}
+MARKERS = {"split": "o", "executor-direct": "s", "builder-direct": "^", "builder-steps": "D"}
+
+
+def method_colour(method: str) -> str:
+    """A hue computed from the method's place in MARKERS (evenly spaced round the colour wheel, mid lightness),
+    so each method keeps its colour from chart to chart; methods not listed are grey."""
+    import colorsys
+
+    order = list(MARKERS)
+    if method not in order:
+        return "#666666"
+    r, g, b = colorsys.hls_to_rgb(order.index(method) / len(order) + 0.08, 0.42, 0.62)
+    return "#{:02x}{:02x}{:02x}".format(round(r * 255), round(g * 255), round(b * 255))
 
 
 def write_chart(report: EvalReport, png: Path, svg: Path) -> None:
@@ -765,7 +776,7 @@ def write_chart(report: EvalReport, png: Path, svg: Path) -> None:
     ax = fig.subplots()
     plotted = 0
     for method in report.methods:
-        colour, marker = STYLES.get(method, ("#555555", "o"))
+        colour, marker = method_colour(method), MARKERS.get(method, "o")
         rows = [r for r in report.rows if r.method == method and r.cpu_mean > 0]
         if not rows:
             continue

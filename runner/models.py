@@ -220,7 +220,7 @@ def add_local(path: Path, name: str, roles: list[str], registry: Registry,
     if name in registry.models:
         raise ConfigError(f"a model named '{name}' is already registered")
     facts = read_gguf(path)
-    spec = ModelSpec(name=name, roles=roles, upstream=str(facts.get("name") or ""),
+    spec = ModelSpec(name=name, roles=roles, upstream=str(facts["keys"]["general.name"] or ""),
                      quantization=facts.get("quantization") or "", file=path.name,
                      size=path.stat().st_size, sha256=sha256_file(path, progress),
                      source=LocalSource(kind="local", path=str(path)))
@@ -303,22 +303,23 @@ def read_gguf_metadata(path: Path, keep_arrays: bool = False) -> tuple[int, int,
         return version, n_tensors, meta
 
 
+HEADER_KEYS = ("general.name", "general.architecture", "general.size_label", "general.file_type",
+               "{arch}.context_length", "tokenizer.chat_template")
+
+
 def read_gguf(path: Path) -> dict[str, Any]:
-    """The facts a user wants about a GGUF file: architecture, size label, quantization, context, template."""
+    """The header facts a user wants, under the metadata keys the GGUF format gives them, plus what follows
+    from them: the quantization named by `general.file_type`, the format version and the counts."""
     version, n_tensors, meta = read_gguf_metadata(path)
     arch = meta.get("general.architecture")
-    ftype = meta.get("general.file_type")
+    keys = {k.format(arch=arch): meta.get(k.format(arch=arch)) for k in HEADER_KEYS}
+    ftype = keys["general.file_type"]
     return {
-        "name": meta.get("general.name"),
-        "architecture": arch,
-        "size_label": meta.get("general.size_label"),
-        "file_type": ftype,
+        "keys": keys,
         "quantization": FILE_TYPES.get(ftype, f"type {ftype}") if ftype is not None else None,
-        "context_length": meta.get(f"{arch}.context_length"),
-        "chat_template": "tokenizer.chat_template" in meta,
         "gguf_version": version,
-        "tensors": n_tensors,
-        "metadata_keys": len(meta),
+        "tensor_count": n_tensors,
+        "metadata_key_count": len(meta),
     }
 
 

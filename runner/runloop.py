@@ -26,9 +26,9 @@ from .route import Route, route
 from .tools import Tool
 
 Fallback = Literal["builder", "executor", "none"]
-# CPU seconds per prompt token of the default executor when a run has too few tasks to measure it:
-# ~90 tok/s prompt eval on 2 threads (shared/builder-notes.md), so about 2/90.
-NOTES_PROMPT_CPU_PER_TOKEN = 2 / 90
+# CPU seconds per prompt token of the default executor when a run has too few tasks to measure it: about
+# 90 prompt tokens per second on 2 threads (`bench/model_speed.py`), so about 2/90.
+PRESET_PROMPT_CPU_PER_TOKEN = 2 / 90
 
 
 class RunOptions(BaseModel):
@@ -228,7 +228,7 @@ class CacheSavings(BaseModel):
     cached_tokens: int
     cached_share: float
     cpu_per_prompt_token: float
-    rate_source: Literal["this run", "builder-notes"]
+    rate_source: Literal["this run", "preset"]
     cpu_seconds_saved: float
 
 
@@ -268,7 +268,7 @@ def cpu_stats(values: list[float]) -> CpuStats:
 
 def prompt_cpu_per_token(records: list[AnswerRecord]) -> tuple[float, str]:
     """CPU seconds per evaluated prompt token, fitted over this run's tool-answered tasks as
-    cpu ≈ a·(prompt − cached) + b·completion (least squares through the origin); builder-notes otherwise."""
+    cpu ≈ a·(prompt − cached) + b·completion (least squares through the origin); the preset rate otherwise."""
     rows = [(r.tokens.prompt - r.tokens.cached, r.tokens.completion, r.cpu.model) for r in records
             if r.status == "tool" and r.cpu.model > 0]
     if len(rows) >= 4:
@@ -283,7 +283,7 @@ def prompt_cpu_per_token(records: list[AnswerRecord]) -> tuple[float, str]:
             b = (syc * sxx - sxc * sxy) / det
             if a > 0 and b > 0:
                 return a, "this run"
-    return NOTES_PROMPT_CPU_PER_TOKEN, "builder-notes"
+    return PRESET_PROMPT_CPU_PER_TOKEN, "preset"
 
 
 def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int, wall_seconds: float,
@@ -490,7 +490,7 @@ def local_setup(options: RunOptions, executor_name: str | None = None, builder_n
 
 def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *, follow: bool = False,
               progress: Progress | None = None, poll: float = 0.5) -> RunReport:
-    """`jigwright run`: resume the answers file, answer every pending task, report. `out=None` writes the
+    """`jigwright answer`: resume the answers file, answer every pending task, report. `out=None` writes the
     answer records to stdout instead (no resume)."""
     from .errors import InputError
     from .queue import read_answers

@@ -15,7 +15,7 @@ _STOP = {
     "these", "those", "starting", "counting", "excluding", "including", "not", "no", "yes", "as", "we", "our",
     "us", "you", "your", "please", "tell", "me", "list", "sort", "put", "order", "first", "last", "next", "one",
     "two", "three", "four", "five", "six", "seven", "eight", "nine", "ten", "boat", "boats", "crew", "yard",
-    "saltmarsh", "harbour", "co-op", "co-operative", "office", "desk", "today", "tomorrow", "monday", "tuesday",
+    "kelpwick", "quay", "harbour", "co-op", "co-operative", "office", "desk", "today", "tomorrow", "monday", "tuesday",
     "wednesday", "thursday", "friday", "saturday", "sunday", "january", "february", "march", "april", "may",
     "june", "july", "august", "september", "october", "november", "december", "iso", "here", "now", "can",
     "should", "would", "will", "has", "have", "had", "be", "been", "being", "so", "but", "also", "only",

@@ -113,7 +113,7 @@ def _gguf_bytes(kv: dict[str, str]) -> bytes:
 def test_gguf_reader_errors(tmp_path):
     good = _gguf_bytes({"general.architecture": "toy", "general.name": "Toy"})
     (tmp_path / "ok.gguf").write_bytes(good)
-    assert models.read_gguf(tmp_path / "ok.gguf")["architecture"] == "toy"
+    assert models.read_gguf(tmp_path / "ok.gguf")["keys"]["general.architecture"] == "toy"
     (tmp_path / "trunc.gguf").write_bytes(good[:-5])
     with pytest.raises(NotGGUFError, match="truncated"):
         models.read_gguf(tmp_path / "trunc.gguf")
@@ -147,10 +147,10 @@ def _cli(*args: str, env: dict | None = None) -> subprocess.CompletedProcess:
 
 
 def test_cli_errors_are_one_line_with_distinct_exit_codes(tmp_path, bare_home):
-    unknown = _cli("models", "info", "nope")
+    unknown = _cli("models", "header", "nope")
     assert unknown.returncode == UnknownModelError.exit_code
     assert unknown.stderr.strip().count("\n") == 0 and "unknown model 'nope'" in unknown.stderr
-    missing = _cli("models", "info", "coder-0.5b")
+    missing = _cli("models", "header", "coder-0.5b")
     assert missing.returncode == ModelMissingError.exit_code
     assert "jigwright models fetch coder-0.5b" in missing.stderr
     bad = tmp_path / "m.toml"

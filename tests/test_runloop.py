@@ -457,7 +457,7 @@ def test_prompt_rate_is_fitted_from_the_run():
             for i, (p, c, g) in enumerate([(300, 100, 20), (500, 450, 40), (800, 0, 10), (400, 300, 60), (90, 0, 5)])]
     rate, source = prompt_cpu_per_token(recs)
     assert source == "this run" and rate == pytest.approx(0.02)
-    assert prompt_cpu_per_token(recs[:2])[1] == "builder-notes"
+    assert prompt_cpu_per_token(recs[:2])[1] == "preset"
 
 
 def test_follow_answers_lines_as_they_are_appended(tmp_path, sandbox):
@@ -527,7 +527,7 @@ def test_run_queue_and_ask_services(tmp_path):
 
 def test_cli_bad_queue_is_a_one_line_input_error(tmp_path):
     env = {**os.environ, "JIGWRIGHT_HOME": str(tmp_path / "home")}
-    proc = subprocess.run([JW, "run", str(tmp_path / "nope.jsonl"), "--fallback", "none"], capture_output=True,
+    proc = subprocess.run([JW, "answer", str(tmp_path / "nope.jsonl"), "--fallback", "none"], capture_output=True,
                           text=True, env=env, timeout=120)
     assert proc.returncode == InputError.exit_code
     last = proc.stderr.strip().splitlines()[-1]
@@ -611,7 +611,7 @@ def test_real_models_route_answer_and_fall_back(tmp_home, tmp_path):
     rows = real_queue()
     q = write_queue(tmp_path / "q.jsonl", [{"id": r["id"], "question": r["question"]} for r in rows])
     out = tmp_path / "answers.jsonl"
-    proc = subprocess.run([JW, "run", str(q), "--out", str(out), "--fallback", "executor", "--json"],
+    proc = subprocess.run([JW, "answer", str(q), "--out", str(out), "--fallback", "executor", "--json"],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 0, proc.stderr[-2000:]
     report = json.loads(proc.stdout)
@@ -643,7 +643,7 @@ def test_real_run_killed_midway_resumes_without_duplicates(tmp_home, tmp_path):
         tasks += [{"id": t["id"], "question": t["question"]} for t in test[3:5]]
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "answers.jsonl"
-    cmd = [JW, "run", str(q), "--out", str(out), "--fallback", "none", "--json"]
+    cmd = [JW, "answer", str(q), "--out", str(out), "--fallback", "none", "--json"]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.time() + 240
     while time.time() < deadline and proc.poll() is None:
