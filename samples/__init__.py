@@ -1,1 +1,1 @@
-"""Demo data for the Saltmarsh Harbour Co-operative: question families, reference solvers, generators."""
+"""Demo data for the Kelpwick Quay Co-operative: question families, reference solvers, generators."""

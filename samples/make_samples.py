@@ -13,7 +13,7 @@ from pathlib import Path
 
 from samples.families import FAMILIES
 
-SEED = "saltmarsh-2025"
+SEED = "kelpwick-2025"
 N_EXAMPLES = 6
 N_TEST = 50
 # families that get three queue tasks instead of two

@@ -572,20 +572,18 @@ def real_tools() -> list[Tool]:
         "departures", DEPARTURES_CODE.strip(),
         {"type": "object", "properties": {"boats": {"type": "array", "items": boat}}, "required": ["boats"],
          "additionalProperties": False},
-        [(d_ex[0]["question"], {"boats": [{"name": "Godwit", "start": 11, "period": 21},
-                                          {"name": "Sandpiper", "start": 18, "period": 28},
-                                          {"name": "Sanderling", "start": 3, "period": 5}]}),
-         (d_ex[1]["question"], {"boats": [{"name": "Thrift", "start": 10, "period": 14},
-                                          {"name": "Kittiwake", "start": 8, "period": 10},
-                                          {"name": "Godwit", "start": 3, "period": 5},
-                                          {"name": "Fulmar", "start": 11, "period": 13}]})], d_desc)
+        [(d_ex[0]["question"], {"boats": [{"name": "Curlew", "start": 2, "period": 6},
+                                          {"name": "Shearwater", "start": 0, "period": 8},
+                                          {"name": "Dunlin", "start": 0, "period": 20}]}),
+         (d_ex[1]["question"], {"boats": [{"name": "Eelgrass", "start": 8, "period": 32},
+                                          {"name": "Kittiwake", "start": 14, "period": 43}]})], d_desc)
     working = make_tool(
         "working-days", WORKING_DAYS_CODE.strip(),
         {"type": "object", "properties": {"start": DATE, "end": DATE, "holidays": {"type": "array", "items": DATE}},
          "required": ["start", "end", "holidays"], "additionalProperties": False},
-        [(w_ex[0]["question"], {"start": "2026-03-21", "end": "2026-04-26",
-                                "holidays": ["2026-04-17", "2026-04-14", "2026-04-08"]}),
-         (w_ex[1]["question"], {"start": "2024-07-01", "end": "2024-08-08", "holidays": ["2024-07-02"]})], w_desc)
+        [(w_ex[0]["question"], {"start": "2025-06-17", "end": "2025-07-10", "holidays": ["2025-07-11"]}),
+         (w_ex[1]["question"], {"start": "2027-10-03", "end": "2027-11-01",
+                                "holidays": ["2027-10-13", "2027-10-22", "2027-10-28"]})], w_desc)
     return [departures, working]
 
 

@@ -1,4 +1,4 @@
-"""Berth order: boats at berths 1..n (west to east), clues about their places; which boat is at berth k?"""
+"""Berth order: boats on berths 1..n (west to east), notes about where they lie; which boat is on berth k?"""
 
 from __future__ import annotations
 
@@ -54,23 +54,38 @@ def solve(boats: list[str], clues: list[dict], berth: int) -> str:
     return names.pop()
 
 
+# Berths are numbered from the west end of the quay, so "east" means a higher berth number.
 _PHRASES = {
-    "at": ["The {a} is at berth {k}.", "The {a} is moored at berth {k}.", "Berth {k} holds the {a}."],
-    "not_at": ["The {a} is not at berth {k}.", "Berth {k} does not hold the {a}."],
-    "directly_east": ["The {a} is directly east of the {b}.", "The {a} is moored immediately east of the {b}.",
-                      "Right to the east of the {b} is the {a}."],
-    "directly_west": ["The {a} is directly west of the {b}.", "The {a} is moored immediately west of the {b}.",
-                      "Right to the west of the {b} is the {a}."],
-    "east_of": ["The {a} is somewhere east of the {b}.", "The {a} lies further east than the {b}."],
-    "west_of": ["The {a} is somewhere west of the {b}.", "The {a} lies further west than the {b}."],
-    "next_to": ["The {a} and the {b} are next to each other.", "The {a} is moored beside the {b}."],
+    "at": ["The {a} took berth {k}.", "Berth {k} went to the {a}.", "The {a} is tied up on berth {k}."],
+    "not_at": ["The {a} is not on berth {k}.", "Whoever has berth {k}, it is not the {a}.",
+               "Berth {k} was not given to the {a}."],
+    "directly_east": ["The {a} is the eastern neighbour of the {b}.",
+                      "The {a} and the {b} lie side by side, with the {a} to the east.",
+                      "The {a} has the berth numbered one above that of the {b}."],
+    "directly_west": ["The {a} is the western neighbour of the {b}.",
+                      "The {a} and the {b} lie side by side, with the {a} to the west.",
+                      "The {a} has the berth numbered one below that of the {b}."],
+    "east_of": ["The {a} has a higher berth number than the {b}.",
+                "Walking the quay from the west end you pass the {b} before the {a}.",
+                "The {b} lies on the western side of the {a}, not necessarily alongside."],
+    "west_of": ["The {a} has a lower berth number than the {b}.",
+                "Walking the quay from the west end you pass the {a} before the {b}.",
+                "The {b} lies on the eastern side of the {a}, not necessarily alongside."],
+    "next_to": ["The {a} and the {b} are on neighbouring berths.",
+                "The {a} lies alongside the {b}, on one side or other.", "The {a} and the {b} share a fender."],
 }
 _INTROS = [
-    "{N} boats, the {list}, are moored at berths 1 to {n}, numbered from west to east.",
-    "Berths 1 to {n} run west to east and hold the {list}, one boat each.",
-    "The {list} occupy berths 1 to {n}, one each; berth 1 is the westernmost.",
+    "Note for the berthing master: the {list} are in tonight, one to a berth on berths 1 to {n}, "
+    "berth 1 at the west end.",
+    "Berth sheet, berths 1-{n} counted from the west: the {list}, one boat each, order not yet written up.",
+    "{N} boats tied up overnight on berths 1 to {n} (numbered west to east): the {list}.",
+    "Quay log. Berths 1 to {n} run from the west end eastwards and hold the {list}.",
 ]
-_QUESTIONS = ["Which boat is at berth {k}?", "Who is moored at berth {k}?", "Name the boat at berth {k}."]
+_ASKS = ["Which boat is on berth {k}?", "Who has berth {k}?", "What should the sheet show for berth {k}?",
+         "Please confirm the boat on berth {k}."]
+# the same request as a note put ahead of the facts
+_NOTES = ["Berth {k} is still blank on the berth sheet: which boat is it?",
+          "Query from the harbour office: who is on berth {k}?"]
 
 
 def _true_clues(order: list[str], berth: int) -> list[dict]:
@@ -120,7 +135,12 @@ def generate(rng: random.Random) -> dict:
         listed = boats[:]
         rng.shuffle(listed)
         intro = pick(rng, _INTROS).format(N=COUNT_WORDS[n].capitalize(), n=n, list=join_and(listed))
-        question = " ".join([intro] + [_phrase(rng, c) for c in clues] + [pick(rng, _QUESTIONS).format(k=berth)])
+        facts = [_phrase(rng, c) for c in clues]
+        if rng.random() < 0.3:
+            parts = [pick(rng, _NOTES).format(k=berth), intro] + facts
+        else:
+            parts = [intro] + facts + [pick(rng, _ASKS).format(k=berth)]
+        question = " ".join(parts)
         if len(question.split()) <= 70:
             params = {"boats": listed, "clues": clues, "berth": berth}
             return {"question": question, "answer": solve(**params), "params": params}

@@ -61,6 +61,7 @@ _QUESTIONS = [
     "Container {c} needs its ISO 6346 check digit. What is it?",
     "Work out the check digit for owner code and serial number {c}.",
     "A tally clerk copied {c} from a container landed by the {boat}. What check digit completes it?",
+    "Gate log: box {c} came off the {boat} with the last digit of its plate scraped away. What digit belongs there?",
 ]
 
 

@@ -28,6 +28,7 @@ _QUESTIONS = [
     "Does {c} pass the ISO 6346 check digit test?",
     "A tally clerk wrote down container {c}. Is that a valid container number?",
     "Check container {c} from the {boat}: is the code valid?",
+    "Yard check before the {boat} sails: one plate reads {c}. Does its check digit add up, yes or no?",
 ]
 
 

@@ -1,15 +1,17 @@
-"""Crate hand-offs: crew members each hold a crate, pairs swap in turn; who holds a given crate at the end?"""
+"""Crate hand-offs: crew members each sign out a crate, then hand crates over in logged exchanges; who has the
+asked crate after the last one?"""
 
 from __future__ import annotations
 
 import random
 
-from ._common import CRATES, CREW, join_and, pick
+from ._common import CRATES, CREW, pick
 
 NAME = "crate_handoffs"
 DESCRIPTION = (
-    "Crew members each start with one crate and named pairs swap crates in the order given; "
-    "answer the name of the crew member who holds the asked crate after the last swap."
+    "Crew members each start with one crate, then two named crew members at a time exchange crates, in the order "
+    "logged; "
+    "answer the name of the crew member who has the asked crate after the last exchange."
 )
 
 
@@ -26,21 +28,40 @@ def solve(holdings: dict[str, str], swaps: list[list[str]], crate: str) -> str:
     return owners[0]
 
 
+# The stores book's opening line: (lead, one person's entry, joiner of entries, end).
 _STARTS = [
-    ("At the start of the shift ", "{p} holds the {c} crate", "."),
-    ("", "{p} has the {c} crate", "."),
-    ("Crates at the start: ", "{p} the {c} crate", "."),
+    ("Signed out of the store this morning: ", "{p} the {c} crate", ", ", "."),
+    ("Stores book: ", "the {c} crate to {p}", ", ", "."),
+    ("Out on the quay first thing were the ", "{c} crate with {p}", ", the ", "."),
+    ("", "{p} signed for the {c} crate", "; ", "."),
 ]
-_SWAP_STYLES = [
-    ("Then, in order: ", "{a} and {b} swap crates", "; ", "."),
-    ("Swaps in order: ", "{a} with {b}", ", ", "."),
-    ("Pairs trade crates in this order: ", "{a} and {b}", ", then ", "."),
+# The hand-offs, each a straight exchange of the two people's crates, in the order logged.
+_HANDOFFS = [
+    ("Crates then changed hands between ", "{a} and {b}", ", then between ", "."),
+    ("Hand-offs logged since, each a straight exchange: ", "{a}/{b}", ", ", "."),
+    ("After that, in this order, ", "{a} exchanged crates with {b}", "; ", "."),
+    ("The day log shows these exchanges of crates, oldest first: ", "{a} with {b}", "; ", "."),
 ]
-_QUESTIONS = [
-    "Who holds the {c} crate at the end?",
-    "Who ends up with the {c} crate?",
-    "Which crew member has the {c} crate after the last swap?",
+_ASKS = [
+    "Whose hands is the {c} crate in now?",
+    "Who is signed for the {c} crate after the last hand-off?",
+    "Which of them should the storeman ask for the {c} crate now?",
+    "Who has the {c} crate at this point?",
 ]
+# the same request as a note put ahead of the log
+_NOTES = [
+    "The storeman is after the {c} crate.",
+    "Query from the store: who has the {c} crate now?",
+    "Note for the stores: find out who is carrying the {c} crate.",
+]
+
+
+def _listing(style: tuple[str, str, str, str], entries: list[str]) -> str:
+    """lead + entries + end; a comma joiner puts "and" before the last entry ("a, b and c")."""
+    lead, _, joiner, end = style
+    if joiner.startswith(", ") and len(entries) > 1:
+        return lead + joiner.join(entries[:-1]) + " and " + joiner[2:] + entries[-1] + end
+    return lead + joiner.join(entries) + end
 
 
 def generate(rng: random.Random) -> dict:
@@ -53,14 +74,18 @@ def generate(rng: random.Random) -> dict:
         swaps: list[list[str]] = []
         while len(swaps) < count:
             pair = rng.sample(people, 2)
-            if not swaps or set(pair) != set(swaps[-1]):  # a pair swapping twice running would undo itself
+            if not swaps or set(pair) != set(swaps[-1]):  # the same pair twice running would undo itself
                 swaps.append(pair)
         crate = rng.choice(crates)
-        lead, item, end = pick(rng, _STARTS)
-        start = lead + join_and([item.format(p=p, c=c) for p, c in holdings.items()]) + end
-        lead, item, sep, end = pick(rng, _SWAP_STYLES)
-        swap_text = lead + sep.join(item.format(a=a, b=b) for a, b in swaps) + end
-        question = " ".join([start, swap_text, pick(rng, _QUESTIONS).format(c=crate)])
+        style = pick(rng, _STARTS)
+        start = _listing(style, [style[1].format(p=p, c=c) for p, c in holdings.items()])
+        style = pick(rng, _HANDOFFS)
+        handoffs = _listing(style, [style[1].format(a=a, b=b) for a, b in swaps])
+        if rng.random() < 0.3:
+            parts = [pick(rng, _NOTES).format(c=crate), start, handoffs]
+        else:
+            parts = [start, handoffs, pick(rng, _ASKS).format(c=crate)]
+        question = " ".join(parts)
         if len(question.split()) > 70:
             continue
         params = {"holdings": holdings, "swaps": swaps, "crate": crate}

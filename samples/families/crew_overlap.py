@@ -40,17 +40,20 @@ _DAYS = [
     "The working day runs from {s} to {e}.",
     "Yard hours are {s}-{e}.",
     "Between {s} and {e} the crew are on shift.",
+    "Quay shift today: {s} until {e}.",
 ]
 _PEOPLE = [
     ("{p} is busy ", "{a}-{b}", "."),
     ("{p}: ", "{a} to {b}", "."),
     ("{p} has jobs from ", "{a} to {b}", "."),
+    ("{p} is tied up ", "{a} until {b}", "."),
 ]
 _QUESTIONS = [
     "What is the earliest time all of them are free together for at least {n} minutes?",
     "When can the earliest {n}-minute meeting of everyone start?",
     "Find the earliest start of a common free slot of {n} minutes.",
     "At what time does the first shared gap of {n} minutes or more begin?",
+    "The harbour master wants them all together for {n} minutes: what is the earliest they can start?",
 ]
 
 

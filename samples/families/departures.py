@@ -38,13 +38,16 @@ _BOAT_LINES = [
     "The {b} departs every {p} minutes, first at minute {s}.",
     "{b}: first departure at minute {s}, then one every {p} minutes.",
     "The {b} sails at minute {s} and again every {p} minutes after that.",
+    "{b}: casts off at minute {s}, then every {p} minutes through the day.",
 ]
-_INTROS = ["", "Minutes count from the opening of the harbour. ", "Saltmarsh timetable: "]
+_INTROS = ["", "Minutes count from the opening of the harbour. ", "Kelpwick timetable: ",
+           "Ferry office times, in minutes after the quay opens. "]
 _QUESTIONS = [
     "At what minute do all {n} boats first leave together?",
     "What is the first minute at which they all depart at the same time?",
     "When is the earliest minute at which every one of these boats leaves together?",
     "Which minute is the first when all of them sail at once?",
+    "The harbour office wants the first minute when the quay sees all {n} casting off at the same time.",
 ]
 
 
@@ -70,7 +73,10 @@ def generate(rng: random.Random) -> dict:
         else:
             lines = [pick(rng, _BOAT_LINES).format(b=b, s=s, p=p) for b, s, p in zip(boats, starts, periods)]
         ask = pick(rng, _QUESTIONS).replace("all {n}", "both" if n == 2 else f"all {COUNT_WORDS[n]}")
-        question = pick(rng, _INTROS) + " ".join(lines) + " " + ask
+        intro, body = pick(rng, _INTROS), " ".join(lines)
+        if intro.endswith(": ") and body.startswith("The "):
+            body = "the " + body[4:]
+        question = intro + body + " " + ask
         if len(question.split()) > 70:
             continue
         params = {"starts": starts, "periods": periods}

@@ -33,6 +33,8 @@ _QUESTIONS = [
     "Sort these labels the yard office way: {labels}. Which label comes in position {k}?",
     "The {boat} manifest lists {labels}. Sorted by prefix alphabetically and then by number, which label is {ord}?",
     "In the yard office's order, what is label number {k} among {labels}?",
+    "Today's pile of labels: {labels}. The office files them by prefix in alphabetical order, then by number, "
+    "smallest first. Which one is filed {ord}?",
 ]
 
 

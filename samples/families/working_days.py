@@ -30,6 +30,7 @@ def _holiday_text(rng: random.Random, holidays: list[str]) -> str:
     return pick(rng, [
         f"The yard is also shut on the co-op {noun} {join_and(holidays)}.",
         f"Co-op {noun}: {', '.join(holidays)}.",
+        f"The co-op closes the yard on {join_and(holidays)}.",
     ])
 
 
@@ -44,13 +45,17 @@ def generate(rng: random.Random) -> dict:
     if rng.random() < 0.3:
         rng.shuffle(hols)
     s, e = first.isoformat(), last.isoformat()
-    form = rng.randrange(3)
+    form = rng.randrange(4)
     if form == 0:
         question = (f"How many yard working days are there from {s} to {e}, counting both days? "
                     f"Weekends are off. " + _holiday_text(rng, hols))
     elif form == 1:
         question = (f"Saturdays and Sundays are off. {_holiday_text(rng, hols)} "
                     f"How many working days are there from {s} through {e} inclusive?")
+    elif form == 2:
+        question = (f"Slipway note: the {rng.choice(BOATS)} is booked in from {s} until {e}, and both days count. "
+                    f"The yard works Monday to Friday. {_holiday_text(rng, hols)} "
+                    f"How many working days does the booking cover?")
     else:
         question = (f"The {rng.choice(BOATS)} is in the yard from {s} to {e}, both days included. "
                     f"Not counting weekends or co-op holidays, how many working days is that? "
