@@ -271,16 +271,16 @@ def test_an_arguments_reply_with_stray_brackets_is_read_as_its_pieces():
 
 # A second toy family (invented) whose answer is a name found in the arguments: the choose strategy.
 SWAPS = [
-    ("Nell has the tar crate and Jory the rope crate. Then Nell and Jory swap. Who has the tar crate?", "Jory",
+    ("Nell has the tar crate and Jory the rope crate. Later Nell and Jory exchange. Who has the tar crate?", "Jory",
      {"crew": [{"name": "Nell", "crate": "tar"}, {"name": "Jory", "crate": "rope"}],
       "swaps": [{"a": "Nell", "b": "Jory"}], "asked_crate": "tar"}),
-    ("Piran holds the net crate, Cadan the salt crate. No swaps. Who has the salt crate?", "Cadan",
+    ("Piran holds the net crate, Cadan the salt crate. No exchanges logged. Who has the salt crate?", "Cadan",
      {"crew": [{"name": "Piran", "crate": "net"}, {"name": "Cadan", "crate": "salt"}], "swaps": [],
       "asked_crate": "salt"}),
-    ("Tegen has the bait crate, Elowen the chain crate. Then Tegen and Elowen swap. Who has the chain crate?",
+    ("Tegen has the bait crate, Elowen the chain crate. Later Tegen and Elowen exchange. Who has the chain crate?",
      "Tegen", {"crew": [{"name": "Tegen", "crate": "bait"}, {"name": "Elowen", "crate": "chain"}],
                "swaps": [{"a": "Tegen", "b": "Elowen"}], "asked_crate": "chain"}),
-    ("Morwenna has the paint crate, Senara the twine crate. Then Senara and Morwenna swap. Who has the paint crate?",
+    ("Morwenna has the paint crate, Senara the twine crate. Later Senara and Morwenna exchange. Who has the paint crate?",
      "Senara", {"crew": [{"name": "Morwenna", "crate": "paint"}, {"name": "Senara", "crate": "twine"}],
                 "swaps": [{"a": "Senara", "b": "Morwenna"}], "asked_crate": "paint"}),
 ]

@@ -100,7 +100,7 @@ def test_a_yes_no_answer_copied_into_the_arguments_is_a_leak():
 
 def test_a_name_stated_in_several_facts_must_be_copied_for_each():
     # invented toy question: the start holdings alone drop the swaps the answer depends on
-    q = "Nell has the rope crate and Piran the tar crate. Then Nell and Piran swap crates. Who has the tar crate?"
+    q = "Nell has the rope crate and Piran the tar crate. Later Nell and Piran exchange crates. Who has the tar crate?"
     holdings = {"crew": [{"name": "Nell", "crate": "rope"}, {"name": "Piran", "crate": "tar"}]}
     probs = S.shape_problems([q], ["Nell"], [holdings])
     assert probs == ["question 1: Nell, Piran stated more often than copied"]
