@@ -43,8 +43,9 @@ def router_schema(cards: list[Card]) -> dict[str, Any]:
 
 def demos_per_tool(cards: list[Card], budget_chars: int = 7000) -> int:
     """Two demo questions per tool while the prompt stays small (~2.5k tokens), else one: the 0.5B router
-    needs the demos (with descriptions alone it routed 6 of 24 queue questions right, with two demos each 23).
-    7000 characters of cards come to about 2.7k tokens of the 4k context."""
+    needs the demos (`bench/router_demos.py`, demo queue, a card per demo family: descriptions alone routed 6
+    of 24 right, one demo each 17, two demos each 21). 7000 characters of cards come to about 2.7k tokens of
+    the 4k context."""
     for k in (2, 1):
         size = sum(len(c.description) + sum(len(d.question) for d in c.demos[:k]) for c in cards)
         if size <= budget_chars:

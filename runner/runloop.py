@@ -458,9 +458,10 @@ class Setup:
 def local_model(role: str, name: str | None, threads: int, verbose: bool = False) -> ChatModel:
     """A local model with `threads` llama.cpp threads (0: one per physical core, llm.py's default).
 
-    The run loop uses one thread by default: on this 2-core machine shared with other work, two threads
-    spent 14-27 CPU s on a 14-token executor reply (each spin-waits at every layer for the other to be
-    scheduled) against 0.97 CPU s with one thread. CPU seconds per task are what the run report counts."""
+    The run loop uses one thread by default: on a 2-core machine shared with other work, two threads spend
+    far more CPU on a short executor reply, since each spin-waits at every layer for the other to be scheduled
+    (`bench/thread_contention.py`: 4.8-5.9 CPU s per reply with two threads against 0.37 with one). CPU
+    seconds per task are what the run report counts."""
     from . import models, settings
     from .llm import LocalModel, open_model
 

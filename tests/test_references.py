@@ -314,7 +314,7 @@ def test_committed_files_parse_and_fit_together():
         assert meta == {"name": module.NAME, "description": module.DESCRIPTION}
         examples = _read_jsonl(SAMPLES / name / "examples.jsonl")
         tests = _read_jsonl(SAMPLES / name / "test.jsonl")
-        assert len(examples) == 6 and len(tests) == 50
+        assert len(examples) == make_samples.N_EXAMPLES == 9 and len(tests) == make_samples.N_TEST
         for row in examples + tests:
             assert set(row) == {"id", "question", "answer"} and type(row["answer"]) in (int, str)
         questions = [r["question"] for r in examples + tests]

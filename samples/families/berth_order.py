@@ -144,3 +144,28 @@ def generate(rng: random.Random) -> dict:
         if len(question.split()) <= 70:
             params = {"boats": listed, "clues": clues, "berth": berth}
             return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "first_berth_asked": "berth 1 is asked",
+    "last_berth_asked": "the last berth is asked",
+    "three_boats": "the fewest boats (3)",
+    "five_boats": "the most boats the generator draws (5)",
+    **{f"clue_{kind}": f"a clue of the kind {kind}" for kind in (*PAIR_KINDS, *PLACE_KINDS)},
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    n, k = len(params["boats"]), params["berth"]
+    found = {f"clue_{c['kind']}" for c in params["clues"]}
+    if k == 1:
+        found.add("first_berth_asked")
+    if k == n:
+        found.add("last_berth_asked")
+    if n == 3:
+        found.add("three_boats")
+    if n == 5:
+        found.add("five_boats")
+    return found

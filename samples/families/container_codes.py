@@ -47,12 +47,13 @@ def solve(code: str) -> int:
 
 
 def random_code10(rng: random.Random) -> str:
-    """An invented owner code + serial whose remainder is not 10 (so its check digit is unambiguous)."""
-    while True:
-        owner = "".join(rng.choice(string.ascii_uppercase) for _ in range(3)) + rng.choice("UUUUJZ")
-        code = owner + "".join(rng.choice(string.digits) for _ in range(6))
-        if weighted_remainder(code) != 10:
-            return code
+    """An invented owner code + serial. About one in eleven has the remainder 10, whose check digit the
+    described rule makes 0 (common practice is to avoid issuing such serials, but they are in the domain)."""
+    owner = "".join(rng.choice(string.ascii_uppercase) for _ in range(3)) + rng.choice("UUUUJZ")
+    digits = "".join(rng.choice(string.digits) for _ in range(6))
+    if rng.random() < 0.1:
+        digits = "0" + digits[1:]
+    return owner + digits
 
 
 _QUESTIONS = [
@@ -70,3 +71,31 @@ def generate(rng: random.Random) -> dict:
     question = pick(rng, _QUESTIONS).format(c=code, boat=rng.choice(BOATS))
     params = {"code": code}
     return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "remainder_10": "the weighted sum leaves 10 mod 11, so the check digit is 0",
+    "remainder_0": "the weighted sum leaves 0 mod 11",
+    "serial_leading_zeros": "the serial number starts with 0",
+    "category_j_or_z": "the fourth letter is J or Z, not U",
+}
+
+
+def code_classes(code10: str) -> set[str]:
+    """The boundary classes of an owner code + serial (shared with the yes/no family)."""
+    found = set()
+    r = weighted_remainder(code10)
+    if r == 10:
+        found.add("remainder_10")
+    if r == 0:
+        found.add("remainder_0")
+    if code10[4] == "0":
+        found.add("serial_leading_zeros")
+    if code10[3] in "JZ":
+        found.add("category_j_or_z")
+    return found
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    return code_classes(task["params"]["code"])

@@ -5,7 +5,7 @@ from __future__ import annotations
 import random
 
 from ._common import BOATS, pick
-from .container_codes import random_code10, solve as check_digit
+from .container_codes import code_classes, random_code10, solve as check_digit
 
 NAME = "container_valid"
 DESCRIPTION = (
@@ -51,4 +51,28 @@ def generate(rng: random.Random) -> dict:
         code = _corrupt(rng, code)
     question = pick(rng, _QUESTIONS).format(c=code, boat=rng.choice(BOATS))
     params = {"code": code}
-    return {"question": question, "answer": solve(**params), "params": params}
+    return {"question": question, "answer": solve(**params), "params": params, "base": base}
+
+
+CLASSES = {
+    "valid": "the check digit is right",
+    "wrong_last_digit": "the last digit is wrong",
+    "swapped_serial_digits": "two neighbouring serial digits are swapped",
+    "remainder_10": "the weighted sum leaves 10 mod 11, so the right check digit is 0",
+    "serial_leading_zeros": "the serial number starts with 0",
+    "category_j_or_z": "the fourth letter is J or Z, not U",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    code = params["code"]
+    found = code_classes(code[:10]) - {"remainder_0"}
+    if answer == "yes":
+        found.add("valid")
+    elif code[:10] != task.get("base", code[:10]):
+        found.add("swapped_serial_digits")
+    else:
+        found.add("wrong_last_digit")
+    return found

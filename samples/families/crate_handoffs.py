@@ -70,7 +70,7 @@ def generate(rng: random.Random) -> dict:
         people = rng.sample(CREW, n)
         crates = rng.sample(CRATES, n)
         holdings = dict(zip(people, crates))
-        count = rng.randint(2, 6)
+        count = rng.randint(1, 6)
         swaps: list[list[str]] = []
         while len(swaps) < count:
             pair = rng.sample(people, 2)
@@ -90,3 +90,39 @@ def generate(rng: random.Random) -> dict:
             continue
         params = {"holdings": holdings, "swaps": swaps, "crate": crate}
         return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "asked_crate_never_moved": "no exchange touches the asked crate's first holder's crate",
+    "asked_crate_back_home": "the asked crate moved but ends with whoever started with it",
+    "one_exchange": "a single exchange",
+    "someone_never_exchanges": "a crew member takes part in no exchange",
+    "five_crew": "the most crew the generator draws (5)",
+    "same_pair_again_later": "one pair exchanges twice, not in a row",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    holdings, swaps, crate = params["holdings"], params["swaps"], params["crate"]
+    first = next(p for p, c in holdings.items() if c == crate)
+    found = set()
+    held, moved = dict(holdings), False
+    for a, b in swaps:
+        moved |= crate in (held[a], held[b])
+        held[a], held[b] = held[b], held[a]
+    if not moved:
+        found.add("asked_crate_never_moved")
+    elif answer == first:
+        found.add("asked_crate_back_home")
+    if len(swaps) == 1:
+        found.add("one_exchange")
+    if set(holdings) - {p for s in swaps for p in s}:
+        found.add("someone_never_exchanges")
+    if len(holdings) == 5:
+        found.add("five_crew")
+    pairs = [frozenset(s) for s in swaps]
+    if len(set(pairs)) < len(pairs):
+        found.add("same_pair_again_later")
+    return found

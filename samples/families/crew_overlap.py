@@ -86,3 +86,35 @@ def generate(rng: random.Random) -> dict:
         question = " ".join(parts)
         if len(question.split()) <= 70:
             return {"question": question, "answer": answer, "params": params}
+
+
+CLASSES = {
+    "answer_is_day_start": "everyone is free at the start of the day",
+    "slot_ends_at_day_end": "the only long enough slot ends exactly when the day ends",
+    "back_to_back_busy": "one busy interval ends exactly when another begins",
+    "overlapping_busy": "busy intervals of different people overlap",
+    "exact_fit": "the slot found is exactly the asked length",
+    "one_busy_interval_each": "every crew member has a single busy interval",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    start, end, minutes = to_minutes(answer), to_minutes(params["day_end"]), params["minutes"]
+    spans = sorted((to_minutes(a), to_minutes(b)) for ivs in params["busy"].values() for a, b in ivs)
+    found = set()
+    if answer == params["day_start"]:
+        found.add("answer_is_day_start")
+    if start + minutes == end:
+        found.add("slot_ends_at_day_end")
+    if any(b == c for (_, b) in spans for (c, _) in spans):
+        found.add("back_to_back_busy")
+    if any(a < d and c < b for i, (a, b) in enumerate(spans) for (c, d) in spans[i + 1:]):
+        found.add("overlapping_busy")
+    following = [a for a, _ in spans if a >= start + minutes] + [end]
+    if min(following) == start + minutes:
+        found.add("exact_fit")
+    if all(len(ivs) == 1 for ivs in params["busy"].values()):
+        found.add("one_busy_interval_each")
+    return found

@@ -61,9 +61,18 @@ def generate(rng: random.Random) -> dict:
             if 20 <= span <= 2000:
                 break
         while True:
-            # choosing the answer first makes the congruences consistent by construction
+            # choosing a common departure first makes the congruences consistent by construction; a boat's
+            # first departure is any earlier departure of it (not only the remainder), so first departures
+            # later than the smallest common remainder occur as the description allows
             target = rng.randrange(10, min(span, 2000))
-            starts = [target % p for p in periods]
+            if rng.random() < 0.5:
+                starts = [target % p for p in periods]
+            else:
+                if rng.random() < 0.5 and span <= 1000:
+                    target += span  # then a first departure after `target - span` makes the answer the later one
+                starts = [target - p * rng.randint(0, target // p) for p in periods]
+            if rng.random() < 0.04:
+                starts = [starts[0]] * n if len(set(periods)) == n else starts
             if len(set(starts)) > 1 or rng.random() < 0.1:
                 break
         boats = rng.sample(BOATS, n)
@@ -81,3 +90,31 @@ def generate(rng: random.Random) -> dict:
             continue
         params = {"starts": starts, "periods": periods}
         return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "late_first_departure": "a boat first leaves after the earliest minute the repeat periods alone would give",
+    "same_first_minute": "all boats first leave at the same minute, which is the answer",
+    "first_at_minute_0": "a boat first leaves at minute 0",
+    "answer_is_a_first_departure": "the answer is some boat's first departure",
+    "two_boats": "the fewest boats (2)",
+    "four_boats": "the most boats the generator draws (4)",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    starts, periods = params["starts"], params["periods"]
+    remainder_only = next(t for t in range(0, math.lcm(*periods) + 1)
+                          if all((t - s) % p == 0 for s, p in zip(starts, periods)))
+    found = {"two_boats"} if len(starts) == 2 else {"four_boats"} if len(starts) == 4 else set()
+    if answer != remainder_only:
+        found.add("late_first_departure")
+    if len(set(starts)) == 1:
+        found.add("same_first_minute")
+    if 0 in starts:
+        found.add("first_at_minute_0")
+    if answer in starts:
+        found.add("answer_is_a_first_departure")
+    return found

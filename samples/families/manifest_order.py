@@ -40,7 +40,7 @@ _QUESTIONS = [
 
 def generate(rng: random.Random) -> dict:
     n = rng.randint(4, 7)
-    prefixes = rng.sample(PREFIXES, rng.randint(2, min(4, n - 1)))
+    prefixes = rng.sample(PREFIXES, 1 if rng.random() < 0.08 else rng.randint(2, min(4, n - 1)))
     labels: set[str] = set()
     while len(labels) < n:
         top = rng.choice([9, 30, 150])
@@ -53,3 +53,27 @@ def generate(rng: random.Random) -> dict:
                                             boat=rng.choice(BOATS))
     params = {"labels": listed, "position": position}
     return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "first_position": "the first label is asked",
+    "last_position": "the last label is asked",
+    "one_prefix": "every label has the same prefix",
+    "numbers_differ_from_text_order": "sorting the numbers as text would put the asked label elsewhere",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    labels, k = params["labels"], params["position"]
+    found = set()
+    if k == 1:
+        found.add("first_position")
+    if k == len(labels):
+        found.add("last_position")
+    if len({lab.split("-")[0] for lab in labels}) == 1:
+        found.add("one_prefix")
+    if sorted(labels)[k - 1] != answer:
+        found.add("numbers_differ_from_text_order")
+    return found

@@ -36,7 +36,7 @@ def _holiday_text(rng: random.Random, holidays: list[str]) -> str:
 
 def generate(rng: random.Random) -> dict:
     first = dt.date(2024, 1, 1) + dt.timedelta(days=rng.randrange(4 * 365))
-    last = first + dt.timedelta(days=rng.randint(0, 45))
+    last = first + dt.timedelta(days=rng.choice([0, 1, 2]) if rng.random() < 0.12 else rng.randint(0, 45))
     span = (last - first).days
     holidays = set()
     for _ in range(rng.choice([0, 1, 1, 2, 2, 3])):
@@ -62,3 +62,37 @@ def generate(rng: random.Random) -> dict:
                     + _holiday_text(rng, hols))
     params = {"start": s, "end": e, "holidays": hols}
     return {"question": question, "answer": solve(**params), "params": params}
+
+
+CLASSES = {
+    "single_day": "the start and end date are the same day",
+    "no_working_day": "the answer is 0",
+    "starts_on_weekend": "the start date is a Saturday or Sunday",
+    "holiday_on_weekend": "a listed holiday falls on a weekend inside the range (it must not count twice)",
+    "holiday_outside_range": "a listed holiday lies outside the range",
+    "crosses_month_end": "the range runs into another month",
+    "crosses_year_end": "the range runs into another year",
+}
+
+
+def classes(task: dict) -> set[str]:
+    """The boundary classes of one generated task (see CLASSES)."""
+    params, answer = task["params"], task["answer"]
+    first, last = dt.date.fromisoformat(params["start"]), dt.date.fromisoformat(params["end"])
+    hols = [dt.date.fromisoformat(h) for h in params["holidays"]]
+    found = set()
+    if first == last:
+        found.add("single_day")
+    if answer == 0:
+        found.add("no_working_day")
+    if first.weekday() >= 5:
+        found.add("starts_on_weekend")
+    if any(first <= h <= last and h.weekday() >= 5 for h in hols):
+        found.add("holiday_on_weekend")
+    if any(not first <= h <= last for h in hols):
+        found.add("holiday_outside_range")
+    if (first.year, first.month) != (last.year, last.month):
+        found.add("crosses_month_end")
+    if first.year != last.year:
+        found.add("crosses_year_end")
+    return found
