@@ -1,8 +1,14 @@
-"""Write the demo sample files (seeded, deterministic): `python -m samples.make_samples` from the repo root.
+"""Write the sample files (seeded, deterministic): `python -m samples.make_samples` from the repo root.
 
-Per family: <family>/examples.jsonl (6 solved examples for building), <family>/test.jsonl (50 held-out tasks),
-<family>/family.toml; plus queue.jsonl (a mixed demo queue with a few questions that fit no family) and
-queue_expected.jsonl (the family and answer each queue task should get, null for none).
+Demo collection, per family: <family>/examples.jsonl (6 solved examples for building), <family>/test.jsonl
+(50 held-out tasks), <family>/family.toml; plus queue.jsonl (a mixed demo queue with a few questions that fit no
+family) and queue_expected.jsonl (the family and answer each queue task should get, null for none).
+
+Second collection (kinds unlike the demo ones, not built by `make demo`), per family:
+extra/<family>/examples.jsonl (9 solved examples: 3 to draft from, 3 to choose with, 3 to confirm with),
+extra/<family>/test.jsonl (30 held-out tasks), extra/<family>/family.toml.
+
+split.toml: every family of both collections in the tuning half or the check half (see `render_split`).
 """
 
 from __future__ import annotations
@@ -11,6 +17,7 @@ import json
 import random
 from pathlib import Path
 
+from samples.extra.families import EXTRA_FAMILIES
 from samples.families import FAMILIES
 
 SEED = "kelpwick-2025"
@@ -24,6 +31,11 @@ OFF_FAMILY = [
     "Can the Dunlin's skipper borrow the co-op's spare outboard motor on Sunday?",
 ]
 SAMPLES_DIR = Path(__file__).resolve().parent
+
+EXTRA_SEED = "kelpwick-extra-2026"
+EXTRA_EXAMPLES = 9  # in file order: 3 draft, 3 choose, 3 confirm
+EXTRA_TEST = 30
+SPLIT_SEED = "kelpwick-split-2026"
 
 
 def _jsonl(rows: list[dict]) -> str:
@@ -78,9 +90,64 @@ def render() -> dict[str, str]:
     return files
 
 
+def _rows(name: str, tag: str, tasks: list[dict]) -> str:
+    return _jsonl([{"id": f"{name}-{tag}{i:02d}", "question": t["question"], "answer": t["answer"]}
+                   for i, t in enumerate(tasks, 1)])
+
+
+def render_extra() -> dict[str, str]:
+    """Relative path -> file content for the second collection (under extra/)."""
+    files: dict[str, str] = {}
+    for name, module in EXTRA_FAMILIES.items():
+        taken: set[str] = set()
+        examples = _draw(module, random.Random(f"{EXTRA_SEED}:{name}:examples"), EXTRA_EXAMPLES, taken,
+                         balanced=True)
+        tests = _draw(module, random.Random(f"{EXTRA_SEED}:{name}:test"), EXTRA_TEST, taken)
+        files[f"extra/{name}/examples.jsonl"] = _rows(name, "ex", examples)
+        files[f"extra/{name}/test.jsonl"] = _rows(name, "t", tests)
+        files[f"extra/{name}/family.toml"] = _toml(module)
+    return files
+
+
+def split() -> dict[str, list[str]]:
+    """The tuning and check halves. Each collection's names, sorted, are shuffled with a fixed seed and dealt
+    out: the first half (rounded up) of each goes to tuning, the rest to check, so both halves hold demo
+    families and neither was picked by hand."""
+    halves: dict[str, list[str]] = {"tuning": [], "check": []}
+    for collection, names in (("demo", FAMILIES), ("extra", EXTRA_FAMILIES)):
+        order = sorted(names)
+        random.Random(f"{SPLIT_SEED}:{collection}").shuffle(order)
+        cut = (len(order) + 1) // 2
+        halves["tuning"] += sorted(order[:cut])
+        halves["check"] += sorted(order[cut:])
+    return halves
+
+
+def render_split() -> str:
+    halves = split()
+    lines = [
+        "# Which families prompts and the build process may be tuned on, and which only measure them (issue 11).",
+        "# Written by `python -m samples.make_samples` before the builder was changed for the second collection.",
+        "# Rule: per collection (demo: samples/<family>/, second: samples/extra/<family>/), the family names are",
+        f"# sorted, shuffled with random.Random(\"{SPLIT_SEED}:<collection>\"), and the first half (rounded up)",
+        "# goes to tuning, the rest to check. Change prompts and process only from tuning families' traces and",
+        "# report both halves; whoever reads a check family's trace moves it to tuning and adds a new check family.",
+    ]
+    for half, names in halves.items():
+        lines.append(f"{half} = [")
+        lines += [f"    {json.dumps(n)}," for n in names]
+        lines.append("]")
+    return "\n".join(lines) + "\n"
+
+
+def render_all() -> dict[str, str]:
+    """Both collections and the split."""
+    return {**render(), **render_extra(), "split.toml": render_split()}
+
+
 def write(out_dir: Path = SAMPLES_DIR) -> list[Path]:
     written = []
-    for rel, text in render().items():
+    for rel, text in render_all().items():
         path = out_dir / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text, encoding="utf-8", newline="\n")
