@@ -76,8 +76,9 @@ def generate(rng: random.Random) -> dict:
         form = rng.choice(_LEGS)
         text = "; ".join(form(a, b, d) for a, b, d in legs)
         lead, rest = pick(rng, _QUESTIONS)
+        if not lead or lead.endswith(". "):  # the list of legs starts a sentence
+            text = text[0].upper() + text[1:]
         question = (lead + rest).format(legs=text, s=start, e=end)
-        question = question[0].upper() + question[1:]
         if len(question.split()) <= 75:
             params = {"legs": legs, "start": start, "end": end}
             return {"question": question, "answer": answer, "params": params}
