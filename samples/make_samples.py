@@ -8,7 +8,8 @@ Second collection (kinds unlike the demo ones, not built by `make demo`), per fa
 extra/<family>/examples.jsonl (9 solved examples: 3 to draft from, 3 to choose with, 3 to confirm with),
 extra/<family>/test.jsonl (30 held-out tasks), extra/<family>/family.toml.
 
-split.toml: every family of both collections in the tuning half or the check half (see `render_split`).
+split.toml: every family of both collections in the tuning half or the check half (see `render_split`). It is a
+record, not an output: written only when missing, then edited by hand when a family moves or is added.
 """
 
 from __future__ import annotations
@@ -132,6 +133,9 @@ def render_split() -> str:
         f"# sorted, shuffled with random.Random(\"{SPLIT_SEED}:<collection>\"), and the first half (rounded up)",
         "# goes to tuning, the rest to check. Change prompts and process only from tuning families' traces and",
         "# report both halves; whoever reads a check family's trace moves it to tuning and adds a new check family.",
+        "# This file is the record: make_samples writes it only when it is missing. Edit it by hand for a move or",
+        "# a new family, and say so below.",
+        "# Moves and additions since it was written: none.",
     ]
     for half, names in halves.items():
         lines.append(f"{half} = [")
@@ -149,6 +153,8 @@ def write(out_dir: Path = SAMPLES_DIR) -> list[Path]:
     written = []
     for rel, text in render_all().items():
         path = out_dir / rel
+        if rel == "split.toml" and path.exists():
+            continue  # the split is a record once written
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(text, encoding="utf-8", newline="\n")
         written.append(path)

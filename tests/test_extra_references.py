@@ -322,7 +322,6 @@ def _read_jsonl(path: Path) -> list[dict]:
 def test_extra_files_match_the_generator():
     rendered = make_samples.render_extra()
     assert rendered == make_samples.render_extra()
-    assert (SAMPLES / "split.toml").read_text(encoding="utf-8") == make_samples.render_split()
     for rel, text in rendered.items():
         assert (SAMPLES / rel).read_bytes() == text.encode("utf-8"), f"{rel} is stale: run python -m samples.make_samples"
 
@@ -346,7 +345,17 @@ def test_extra_files_parse_and_fit_together():
     assert not {p.parent.name for p in SAMPLES.glob("*/examples.jsonl")} & set(EXTRA_FAMILIES)
 
 
-def test_split_covers_every_family_once_with_demo_families_in_both_halves():
+def test_split_rule_is_seeded_and_deals_each_collection_into_both_halves():
+    halves = make_samples.split()
+    assert halves == make_samples.split()
+    assert tomllib.loads(make_samples.render_split()) == halves
+    for collection in (FAMILIES, EXTRA_FAMILIES):
+        in_tuning = set(collection) & set(halves["tuning"])
+        assert len(in_tuning) == (len(collection) + 1) // 2
+        assert set(collection) - in_tuning <= set(halves["check"])
+
+
+def test_split_record_covers_every_family_once_with_demo_families_in_both_halves():
     split = tomllib.loads((SAMPLES / "split.toml").read_text(encoding="utf-8"))
     assert set(split) == {"tuning", "check"}
     tuning, check = split["tuning"], split["check"]
