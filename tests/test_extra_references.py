@@ -1,10 +1,9 @@
 """Reference solvers of the second collection (samples/extra/) checked against outside sources, its sample files
-against their generators, and the tuning/check split against both collections."""
+for shape (test_references compares every committed file with its generator), and the tuning/check split."""
 
 from __future__ import annotations
 
 import datetime as dt
-import json
 import math
 import random
 import sys
@@ -36,13 +35,8 @@ from samples.extra.families import (  # noqa: E402
     tank_litres,
 )
 from samples.families import FAMILIES  # noqa: E402
+from test_references import SAMPLES, _read_jsonl, generated  # noqa: E402  (the same helpers for both collections)
 
-CASES = 150
-
-
-def generated(module, count: int = CASES, seed: int = 0) -> list[dict]:
-    rng = random.Random(f"refcheck:{module.NAME}:{seed}")
-    return [module.generate(rng) for _ in range(count)]
 
 
 # --- conversions -----------------------------------------------------------------------------------------
@@ -311,20 +305,6 @@ def test_regatta_ranking_matches_numpy_lexsort():
 
 
 # --- committed sample files and the split -----------------------------------------------------------------
-
-SAMPLES = ROOT / "samples"
-
-
-def _read_jsonl(path: Path) -> list[dict]:
-    return [json.loads(line) for line in path.read_text(encoding="utf-8").splitlines()]
-
-
-def test_extra_files_match_the_generator():
-    rendered = make_samples.render_extra()
-    assert rendered == make_samples.render_extra()
-    for rel, text in rendered.items():
-        assert (SAMPLES / rel).read_bytes() == text.encode("utf-8"), f"{rel} is stale: run python -m samples.make_samples"
-
 
 def test_extra_files_parse_and_fit_together():
     assert len(EXTRA_FAMILIES) >= 12 and not set(EXTRA_FAMILIES) & set(FAMILIES)

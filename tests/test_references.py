@@ -307,8 +307,9 @@ def _read_jsonl(path: Path) -> list[dict]:
 
 
 def test_committed_files_match_the_generator():
-    rendered = make_samples.render()
-    assert rendered == make_samples.render()
+    # both collections; split.toml is a record that may be edited by hand, so it is checked on its own
+    rendered = {rel: text for rel, text in make_samples.render_all().items() if rel != "split.toml"}
+    assert rendered == {rel: text for rel, text in make_samples.render_all().items() if rel != "split.toml"}
     for rel, text in rendered.items():
         assert (SAMPLES / rel).read_bytes() == text.encode("utf-8"), f"{rel} is stale: run python -m samples.make_samples"
 
