@@ -96,13 +96,27 @@ def _rows(name: str, tag: str, tasks: list[dict]) -> str:
                    for i, t in enumerate(tasks, 1)])
 
 
+def _draw_thirds(module, rng: random.Random, taken: set[str]) -> list[dict]:
+    """The examples in three parts (draft, choose, confirm), each drawn like `_draw`; where a family names the
+    cases of its rule (`case(task)`, e.g. order or no order), each part shows at least two of them."""
+    out: list[dict] = []
+    part = EXTRA_EXAMPLES // 3
+    while len(out) < EXTRA_EXAMPLES:
+        seen = set(taken)
+        tasks = _draw(module, rng, part, seen, balanced=True)
+        if hasattr(module, "case") and len({module.case(t) for t in tasks}) < 2:
+            continue
+        taken |= seen
+        out += tasks
+    return out
+
+
 def render_extra() -> dict[str, str]:
     """Relative path -> file content for the second collection (under extra/)."""
     files: dict[str, str] = {}
     for name, module in EXTRA_FAMILIES.items():
         taken: set[str] = set()
-        examples = _draw(module, random.Random(f"{EXTRA_SEED}:{name}:examples"), EXTRA_EXAMPLES, taken,
-                         balanced=True)
+        examples = _draw_thirds(module, random.Random(f"{EXTRA_SEED}:{name}:examples"), taken)
         tests = _draw(module, random.Random(f"{EXTRA_SEED}:{name}:test"), EXTRA_TEST, taken)
         files[f"extra/{name}/examples.jsonl"] = _rows(name, "ex", examples)
         files[f"extra/{name}/test.jsonl"] = _rows(name, "t", tests)

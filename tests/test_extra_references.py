@@ -344,3 +344,14 @@ def test_split_record_covers_every_family_once_with_demo_families_in_both_halves
     assert abs(len(tuning) - len(check)) <= 2
     for collection in (FAMILIES, EXTRA_FAMILIES):
         assert set(collection) & set(tuning) and set(collection) & set(check)
+
+
+@pytest.mark.parametrize("name", sorted(n for n, m in EXTRA_FAMILIES.items() if hasattr(m, "case")))
+def test_each_third_of_the_examples_shows_two_cases_of_the_rule(name):
+    module = EXTRA_FAMILIES[name]
+    rng = random.Random(f"{make_samples.EXTRA_SEED}:{name}:examples")
+    examples = make_samples._draw_thirds(module, rng, set())
+    committed = _read_jsonl(SAMPLES / "extra" / name / "examples.jsonl")
+    assert [t["question"] for t in examples] == [r["question"] for r in committed]
+    for third in (examples[0:3], examples[3:6], examples[6:9]):
+        assert len({module.case(t) for t in third}) >= 2

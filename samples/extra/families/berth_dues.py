@@ -41,6 +41,12 @@ def solve(length_m: float, nights: int) -> str:
     return f"{pence // 100}.{pence % 100:02d}"
 
 
+def case(task: dict) -> int:
+    """How many bands of the tariff the boat's length reaches."""
+    metres = math.ceil(Decimal(str(task["params"]["length_m"])))
+    return sum(1 for top, _ in BANDS[:-1] if metres > top) + 1
+
+
 _QUESTIONS = [
     "The {boat}, {L} m overall, wants a visitor berth for {n}. What are the dues?",
     "Visitor in: {boat}, LOA {L} m, staying {n}. Dues to collect?",

@@ -26,6 +26,11 @@ def solve(stock: int, daily_use: int, lead_days: int, safety_stock: int, max_lev
     return math.ceil(max(max_level - stock, 0) / PALLET) * PALLET
 
 
+def case(task: dict) -> bool:
+    """Which branch of the rule a task shows: an order or none."""
+    return task["answer"] > 0
+
+
 _FACTS = {
     "stock": ["{stock} bags in the ice house this morning", "stock count {stock} bags",
               "we have {stock} bags on the shelves"],

@@ -29,6 +29,11 @@ def solve(start: str, months: int) -> str:
     return dt.date(year, month, day).isoformat()
 
 
+def case(task: dict) -> bool:
+    """Which branch of the rule a task shows: the start day kept, or cut back to a shorter month's last day."""
+    return read_date(task["params"]["start"]).day == int(task["answer"][-2:])
+
+
 _QUESTIONS = [
     "The {boat}'s mooring licence began on {d} and runs {n}. On what date does it expire?",
     "Licence for the {boat}: start {d}, term {n}. Expiry date?",

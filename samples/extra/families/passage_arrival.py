@@ -38,6 +38,11 @@ def solve(depart_date: str, depart_time: str, from_offset: str, to_offset: str, 
     return arrive.strftime("%Y-%m-%d %H:%M")
 
 
+def case(task: dict) -> bool:
+    """Whether the arrival falls in another month than the departure."""
+    return read_date(task["params"]["depart_date"]).month != int(task["answer"][5:7])
+
+
 def _offset_text(hours: int) -> str:
     return f"UTC{hours:+d}"
 

@@ -44,6 +44,11 @@ def _hyphenated(rng: random.Random, nine: str, check: str) -> str:
     return f"{nine[:group]}-{nine[group:group + publisher]}-{nine[group + publisher:]}-{check}"
 
 
+def case(task: dict) -> bool:
+    """Whether the old ISBN ends in X (a check value of 10)."""
+    return task["params"]["isbn10"].upper().endswith("X")
+
+
 _QUESTIONS = [
     "Pilot book on the shelf with old ISBN {i}. What 13-digit number do we key into the till?",
     "Convert ISBN {i} to its 13-digit form for the stock sheet.",
