@@ -97,13 +97,13 @@ def _rows(name: str, tag: str, tasks: list[dict]) -> str:
 
 
 def _draw_thirds(module, rng: random.Random, taken: set[str]) -> list[dict]:
-    """The examples in three parts (draft, choose, confirm), each drawn like `_draw`; where a family names the
-    cases of its rule (`case(task)`, e.g. order or no order), each part shows at least two of them."""
+    """The examples in three parts (draft, choose, confirm), each drawn by `_draw`; where a family names the
+    cases of its rule (`case(task)`, e.g. order or no order, or yes and no), each part shows at least two."""
     out: list[dict] = []
     part = EXTRA_EXAMPLES // 3
     while len(out) < EXTRA_EXAMPLES:
         seen = set(taken)
-        tasks = _draw(module, rng, part, seen, balanced=True)
+        tasks = _draw(module, rng, part, seen)
         if hasattr(module, "case") and len({module.case(t) for t in tasks}) < 2:
             continue
         taken |= seen
