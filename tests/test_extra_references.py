@@ -31,7 +31,9 @@ from samples.extra.families import (  # noqa: E402
     passage_arrival,
     pilot_isbn,
     regatta_ranking,
+    sail_area,
     sounding_depth,
+    supplier_iban,
     tank_litres,
 )
 from samples.families import FAMILIES  # noqa: E402
@@ -88,6 +90,22 @@ def test_tank_litres_match_sympy_and_pint(ureg):
             assert task["answer"] == math.floor(round(volume, 9))
     with pytest.raises(ValueError):
         tank_litres.solve("sphere", [10])
+
+
+def test_sail_area_matches_sympy_triangle():
+    # Source: sympy.geometry.Triangle(sss=...) builds the triangle from its three sides and gives its exact
+    # area; rounded half up to the hundredth (floor(100x + 1/2) / 100), the family's stated rule.
+    import sympy
+    from sympy.geometry import Triangle
+
+    for task in generated(sail_area, count=100):
+        sides = [sympy.Rational(str(task["params"][k])) for k in ("luff", "leech", "foot")]
+        area = abs(Triangle(sss=sides).area)
+        hundredths = int(sympy.floor(area * 100 + sympy.Rational(1, 2)))
+        assert task["answer"] == f"{hundredths // 100}.{hundredths % 100:02d}"
+    assert sail_area.solve(3, 4, 5) == "6.00"  # a right triangle, by hand: 3 x 4 / 2
+    with pytest.raises(ValueError):
+        sail_area.solve(1, 2, 3)  # flat: no triangle
 
 
 # --- tariffs, fees and interest ----------------------------------------------------------------------------
@@ -180,6 +198,22 @@ def test_pilot_isbn_matches_stdnum():
     assert any("X" in t["params"]["isbn10"] for t in generated(pilot_isbn, count=300))
     # A commonly quoted pair (from memory), cross-checked by stdnum above: 0-306-40615-2 -> 978-0-306-40615-7.
     assert pilot_isbn.solve("0-306-40615-2") == "9780306406157"
+
+
+def test_supplier_iban_matches_stdnum():
+    # Source: python-stdnum, stdnum.iban.calc_check_digits (the ISO 13616 mod-97 check digits; it ignores the
+    # check digits in the number given) and stdnum.iban.is_valid for countries whose BBAN carries no national
+    # check of its own in stdnum's tables (GB, IE here).
+    from stdnum import iban
+
+    for task in generated(supplier_iban, count=300):
+        answer = task["answer"]
+        assert answer[2:4] == iban.calc_check_digits(answer[:2] + "00" + answer[4:])
+        if answer[:2] in ("GB", "IE"):
+            assert iban.is_valid(answer)
+    # The example IBAN printed in many bank leaflets (from memory), cross-checked by stdnum:
+    assert supplier_iban.solve("GB", "NWBK 6016 1331 9268 19") == "GB29NWBK60161331926819"
+    assert iban.is_valid("GB29NWBK60161331926819")
 
 
 def test_cheque_words_match_num2words():
@@ -331,8 +365,10 @@ def test_split_rule_is_seeded_and_deals_each_collection_into_both_halves():
     assert tomllib.loads(make_samples.render_split()) == halves
     for collection in (FAMILIES, EXTRA_FAMILIES):
         in_tuning = set(collection) & set(halves["tuning"])
-        assert len(in_tuning) == (len(collection) + 1) // 2
+        assert abs(2 * len(in_tuning) - len(collection)) <= 2
         assert set(collection) - in_tuning <= set(halves["check"])
+    for _, (a, b) in make_samples.SPREAD:
+        assert (a in halves["tuning"]) != (b in halves["tuning"])
 
 
 def test_split_record_covers_every_family_once_with_demo_families_in_both_halves():
@@ -342,6 +378,8 @@ def test_split_record_covers_every_family_once_with_demo_families_in_both_halves
     every = set(FAMILIES) | set(EXTRA_FAMILIES)
     assert sorted(tuning + check) == sorted(every) and not set(tuning) & set(check)
     assert abs(len(tuning) - len(check)) <= 2
+    for _, (a, b) in make_samples.SPREAD:  # kinds the builder has failed on sit in both halves
+        assert (a in tuning) != (b in tuning)
     for collection in (FAMILIES, EXTRA_FAMILIES):
         assert set(collection) & set(tuning) and set(collection) & set(check)
 

@@ -18,7 +18,9 @@ from . import (
     passage_arrival,
     pilot_isbn,
     regatta_ranking,
+    sail_area,
     sounding_depth,
+    supplier_iban,
     tank_litres,
 )
 
@@ -39,5 +41,7 @@ EXTRA_FAMILIES: dict[str, ModuleType] = {
         regatta_ranking,
         tank_litres,
         cheque_words,
+        supplier_iban,
+        sail_area,
     )
 }
