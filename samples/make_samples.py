@@ -124,16 +124,16 @@ def render_extra() -> dict[str, str]:
     return files
 
 
-# Kinds of question the builder has failed on before (issue 11); the families of each pair go to different halves,
-# so that a change for such a kind is both tuned on and checked.
+# Kinds of question the builder has failed on before (issue 11), two families each; the two go to different
+# halves, so that a change for such a kind is both tuned on and checked.
 SPREAD = [("dates with month names", ("licence_expiry", "passage_arrival")),
           ("a varying number of items", ("landing_tally", "mooring_route"))]
 
 
 def split() -> dict[str, list[str]]:
     """The tuning and check halves. Per collection, the sorted names are shuffled with a fixed seed and dealt one
-    by one to the half holding fewer of that collection so far (tuning on a tie); dealing a family of a SPREAD
-    pair puts its partner in the other half at once. Nobody picks which family goes where."""
+    by one to the half holding fewer of that collection so far (tuning on a tie); dealing one family of a SPREAD
+    kind puts the other in the other half at once. Nobody picks which family goes where."""
     halves: dict[str, list[str]] = {"tuning": [], "check": []}
     partner = {a: b for _, pair in SPREAD for a, b in (pair, pair[::-1])}
     for collection, names in (("demo", FAMILIES), ("extra", EXTRA_FAMILIES)):
@@ -154,15 +154,16 @@ def split() -> dict[str, list[str]]:
 
 def render_split() -> str:
     halves = split()
-    spread = "; ".join(f"{label}: {' / '.join(pair)}" for label, pair in SPREAD)
+    spread = "; ".join(f"{label}: {' and '.join(two)}" for label, two in SPREAD)
     lines = [
         "# Which families prompts and the build process may be tuned on, and which only measure them (issue 11).",
         "# Written by `python -m samples.make_samples` before the builder was changed for the second collection.",
         "# Rule: per collection (demo: samples/<family>/, second: samples/extra/<family>/), the family names are",
         f"# sorted, shuffled with random.Random(\"{SPLIT_SEED}:<collection>\"), and dealt one by one to the half",
-        "# holding fewer of that collection so far (tuning on a tie); dealing one family of a pair below (kinds the",
-        "# builder has failed on before) puts the other in the other half at once. Nobody picked which goes where.",
-        f"# Pairs: {spread}.",
+        "# holding fewer of that collection so far (tuning on a tie); of the two families of each kind below (kinds",
+        "# the builder has failed on before), dealing one puts the other in the other half at once. Nobody picked",
+        "# which family goes where.",
+        f"# Kinds: {spread}.",
         "# Change prompts and process only from tuning families' traces and report both halves; whoever reads a",
         "# check family's trace moves it to tuning and adds a new check family.",
         "# This file is the record: make_samples writes it only when it is missing. Edit it by hand for a move or",

@@ -8,9 +8,10 @@ from samples.families._common import CREW, pick
 
 NAME = "card_digit"
 DESCRIPTION = (
-    "Co-op membership card numbers carry a Luhn check (from the rightmost digit, double every second digit, "
-    "take 9 off any double above 9, and the sum of all digits must end in 0). One digit of the card number "
-    "is unreadable and written as ?; answer the digit (0-9) that makes the number pass the check."
+    "Co-op membership card numbers carry a Luhn check (counting back from the last digit, which stays as it "
+    "is, double every second digit, take 9 off any double above 9; the sum of all digits must end in 0). One "
+    "digit of the card number is unreadable and written as ?; answer the digit (0-9) that makes the number "
+    "pass the check."
 )
 
 
