@@ -214,6 +214,9 @@ def test_supplier_iban_matches_stdnum():
     # The example IBAN printed in many bank leaflets (from memory), cross-checked by stdnum:
     assert supplier_iban.solve("GB", "NWBK 6016 1331 9268 19") == "GB29NWBK60161331926819"
     assert iban.is_valid("GB29NWBK60161331926819")
+    # the invented example in the family description
+    assert supplier_iban.solve("GB", "KELP 2046 1187 3355 09") == "GB03KELP20461187335509"
+    assert iban.is_valid("GB03KELP20461187335509")
 
 
 def test_cheque_words_match_num2words():

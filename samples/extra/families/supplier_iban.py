@@ -15,7 +15,7 @@ DESCRIPTION = (
     "An IBAN is the two-letter country code, two check digits, then the domestic account number (BBAN). For "
     "the check digits, put the country code and 00 after the BBAN, turn letters into numbers (A=10, B=11, ... "
     "Z=35), take that number mod 97 and subtract the remainder from 98; always write two digits. Answer the "
-    "IBAN with no spaces, e.g. GB29NWBK60161331926819."
+    "IBAN with no spaces, e.g. GB03KELP20461187335509."
 )
 
 # country -> (letters, digits) at the start of its domestic account number, as the co-op's suppliers write them
