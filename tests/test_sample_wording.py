@@ -14,6 +14,7 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:  # so `samples` imports without an install or PYTHONPATH
     sys.path.insert(0, str(ROOT))
 
+from samples.extra.families import EXTRA_FAMILIES  # noqa: E402
 from samples.families import FAMILIES  # noqa: E402
 
 SAMPLES = ROOT / "samples"
@@ -53,12 +54,12 @@ def test_the_ban_list_catches_the_old_shapes():
     assert not banned_hits("The Curlew is the Dunlin's neighbour on the east side. Crates changed hands.")
 
 
-@pytest.mark.parametrize("name", sorted(FAMILIES))
+@pytest.mark.parametrize("name", sorted({**FAMILIES, **EXTRA_FAMILIES}))
 def test_generated_questions_avoid_banned_shapes(name):
-    # 400 draws reach every template of every generator many times over
+    # 400 draws reach every template of every generator many times over (both collections)
     rng = random.Random(f"wording:{name}")
     for _ in range(400):
-        question = FAMILIES[name].generate(rng)["question"]
+        question = {**FAMILIES, **EXTRA_FAMILIES}[name].generate(rng)["question"]
         assert not banned_hits(question), (banned_hits(question), question)
 
 
