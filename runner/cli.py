@@ -16,7 +16,7 @@ from rich.table import Table
 from . import models, settings
 from .errors import BuildFailedError, JigwrightError
 
-app = typer.Typer(add_completion=False, no_args_is_help=True,
+app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Jigwright: a builder model writes verified tools from solved examples; "
                        "an executor model answers later questions by filling their arguments. Offline, on CPU.")
 models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, read the header, try one.")
@@ -35,8 +35,30 @@ def caution() -> None:
     err.print(f"[yellow]{CAUTION}[/yellow]")
 
 
+def version_text() -> str:
+    """This package's version and the llama.cpp binding's (read from the installed metadata, so the binding's
+    native library is not loaded just to print it)."""
+    from importlib import metadata
+
+    from . import __version__
+
+    try:
+        binding = metadata.version("llama-cpp-python")
+    except metadata.PackageNotFoundError:
+        binding = "not installed"
+    return f"jigwright {__version__} (llama-cpp-python {binding})"
+
+
+def _print_version(value: bool) -> None:
+    if value:
+        out.print(version_text(), highlight=False)
+        raise typer.Exit()
+
+
 @app.callback()
-def _root(verbose: bool = typer.Option(False, "--verbose", "-v", help="Show llama.cpp logs and tracebacks.")) -> None:
+def _root(verbose: bool = typer.Option(False, "--verbose", "-v", help="Show llama.cpp logs and tracebacks."),
+          version: bool = typer.Option(False, "--version", is_eager=True, callback=_print_version,
+                                       help="Print the version and the llama.cpp binding's version.")) -> None:
     STATE["verbose"] = verbose
 
 

@@ -27,9 +27,9 @@ import diskcache
 from pydantic import BaseModel, Field, computed_field
 
 from . import build as build_mod
-from . import prompts, settings
+from . import answerform, prompts, settings
 from .errors import InputError
-from .execute import EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, extract_answer
+from .execute import EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match
 from .llm import ChatModel, Message
 from .meter import physical_cores
 from .runloop import RunOptions, quantile
@@ -331,12 +331,12 @@ DIRECT = {
 }
 
 
-def parse_reply(text: str, finish_reason: str, reasons: bool) -> str:
-    """The answer in a direct reply: after the last 'Answer:', else the last line; none from a reasoning
-    reply that ran out of tokens before it answered."""
+def parse_reply(question: str, text: str, finish_reason: str, reasons: bool) -> Any:
+    """The answer in a direct reply, cut down to what the question asks for by answerform's rules; none ("")
+    from a reasoning reply that ran out of tokens before it answered."""
     if reasons and finish_reason == "length" and not re.search(r"answer\s*(?:is)?\s*[:=]", text, re.IGNORECASE):
         return ""
-    return extract_answer(text)
+    return answerform.direct_answer(question, text)
 
 
 # ---- one task -----------------------------------------------------------------------------------------------
@@ -344,10 +344,11 @@ def parse_reply(text: str, finish_reason: str, reasons: bool) -> str:
 def answer_direct(model: ChatModel, method: DirectMethod, family: build_mod.Family, task: EvalTask) -> TaskResult:
     reply = model.chat(method.messages(family, task.question), seed=MODEL_SEED, temperature=0.0,
                        max_tokens=method.max_tokens)
-    answer = parse_reply(reply.text, reply.finish_reason, method.reasons)
+    answer = parse_reply(task.question, reply.text, reply.finish_reason, method.reasons)
+    answered = answer not in ("", None)
     u = reply.usage
-    return TaskResult(id=task.id, answer=answer or None, answered=bool(answer),
-                      error=None if answer else f"no answer ({reply.finish_reason})", reply=reply.text[:2000],
+    return TaskResult(id=task.id, answer=answer if answered else None, answered=answered,
+                      error=None if answered else f"no answer ({reply.finish_reason})", reply=reply.text[:2000],
                       model_cpu=u.cpu_seconds, wall_seconds=u.wall_seconds, prompt_tokens=u.prompt_tokens,
                       completion_tokens=u.completion_tokens, cached_tokens=u.cached_tokens)
 
@@ -550,7 +551,8 @@ class Evaluator:
         results, computed = [], 0
         for task in tasks:
             key = result_key(method, sha, fam.name, task, template, context,
-                             {"seed": MODEL_SEED, "max_tokens": spec.max_tokens})
+                             {"seed": MODEL_SEED, "max_tokens": spec.max_tokens,
+                              "answer_rules": answerform.RULES_VERSION})
             r, new = self._cached_or_run(key, lambda: answer_direct(model, spec, fam.family, task))
             results.append(r)
             computed += new

@@ -11,7 +11,7 @@ from typing import Any
 import jsonschema
 from pydantic import BaseModel
 
-from . import prompts
+from . import answerform, prompts
 from .llm import ChatModel, Message
 from .meter import Usage
 from .tools import Card, Tool
@@ -130,12 +130,8 @@ def answers_match(expected: Any, got: Any) -> bool:
 
 
 def extract_answer(text: str) -> str:
-    """The answer part of a free-text model reply: after the last 'Answer:' if present, else the last line."""
-    m = list(re.finditer(r"answer\s*(?:is)?\s*[:=]\s*(.+)", text, flags=re.IGNORECASE))
-    if m:
-        return m[-1].group(1).strip().strip("*").strip()
-    lines = [ln.strip() for ln in text.strip().splitlines() if ln.strip()]
-    return lines[-1] if lines else ""
+    """The answer part of a free-text model reply (the rule lives in answerform)."""
+    return answerform.answer_part(text)
 
 
 # ---- calling the tool, with one retry; and the direct answer (the fallback) ------------------------------
@@ -184,9 +180,10 @@ def answer_with_tool(model: ChatModel, tool: Tool, question: str, sandbox: Any, 
 
 
 class DirectAnswer(BaseModel):
-    """A model's own answer to a question, without a tool (not tool-backed)."""
+    """A model's own answer to a question, without a tool (not tool-backed): the answer cut out of its reply
+    by the rules in answerform ("" when there is none), and the full reply."""
 
-    answer: str
+    answer: Any
     text: str
     usage: Usage = Usage()
 
@@ -196,12 +193,13 @@ def direct_messages(question: str) -> list[Message]:
 
 
 def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = 192) -> DirectAnswer:
-    """Ask `model` for a short worked answer ending in 'Answer: ...' and take that part; a reply cut off by
-    the token limit before any 'Answer:' gives an empty answer (not a fragment of working)."""
+    """Ask `model` for a short worked answer ending in 'Answer: ...' and cut out the answer the question asks
+    for (answerform's rules); a reply cut off by the token limit before any 'Answer:' gives an empty answer (not
+    a fragment of working)."""
     reply = model.chat(direct_messages(question), seed=seed, temperature=0.0, max_tokens=max_tokens)
     if reply.finish_reason == "length" and not re.search(r"answer\s*(?:is)?\s*[:=]", reply.text, re.IGNORECASE):
         return DirectAnswer(answer="", text=reply.text, usage=reply.usage)  # cut off before it answered
-    return DirectAnswer(answer=extract_answer(reply.text), text=reply.text, usage=reply.usage)
+    return DirectAnswer(answer=answerform.direct_answer(question, reply.text), text=reply.text, usage=reply.usage)
 
 
 __all__ = ["Filled", "fill_messages", "fill_arguments", "forget_fill_misses", "schema_problem", "normalise", "answers_match",

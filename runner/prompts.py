@@ -10,7 +10,9 @@ from typing import Any
 
 import jinja2
 
-PROMPTS_DIR = Path(__file__).resolve().parent.parent / "prompts"
+from .settings import shipped_path
+
+PROMPTS_DIR: Path = shipped_path("prompts")
 
 
 @lru_cache(maxsize=1)

@@ -52,6 +52,8 @@ class AnswerRecord(BaseModel):
     line: int | None = None
     question: str | None = None
     answer: Any = None
+    reply: str | None = Field(None, description="a model's full reply when it answered directly (the answer is "
+                                                  "the part of it the question asks for)")
     route: str = NONE_ROUTE
     confidence: float | None = None
     arguments: dict[str, Any] | None = None

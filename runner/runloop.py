@@ -111,11 +111,12 @@ class _Work:
     arguments: dict[str, Any] | None = None
     error: str | None = None
 
-    def record(self, status: str, answer: Any = None, tool_backed: bool = False) -> AnswerRecord:
+    def record(self, status: str, answer: Any = None, tool_backed: bool = False,
+               reply: str | None = None) -> AnswerRecord:
         r = self.route
         u = self.usage
         return AnswerRecord(
-            id=self.task.id, line=self.task.line, question=self.task.question, answer=answer,
+            id=self.task.id, line=self.task.line, question=self.task.question, answer=answer, reply=reply,
             route=r.tool if r else NONE_ROUTE, confidence=r.confidence if r else None, arguments=self.arguments,
             status=status, tool_backed=tool_backed, error=self.error, attempts=self.attempts,
             cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4)),
@@ -197,11 +198,11 @@ class Engine:
             return work.record("failed")
         direct = answer_directly(model, work.task.question, seed=self.options.seed)
         work.usage = work.usage + direct.usage
-        if not direct.answer:
+        if direct.answer in ("", None):
             why = "ran out of tokens before answering" if direct.text else "gave no answer"
             work.error = (work.error + "; " if work.error else "") + f"the fallback model {why}"
-            return work.record("failed")
-        return work.record("fallback", direct.answer, tool_backed=False)
+            return work.record("failed", reply=direct.text or None)
+        return work.record("fallback", direct.answer, tool_backed=False, reply=direct.text)
 
     def answer(self, task: Task) -> AnswerRecord:
         """The whole path for one task (used by `ask` and by `--follow`)."""

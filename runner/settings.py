@@ -13,6 +13,8 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from .errors import ConfigError
 
 PROJECT_ROOT = Path(__file__).resolve().parent.parent
+# An installed wheel carries the top-level prompts/ and models.toml as runner/shipped/ (see pyproject.toml).
+SHIPPED_DIR = Path(__file__).resolve().parent / "shipped"
 Role = Literal["builder", "executor"]
 
 
@@ -33,10 +35,17 @@ def store_dir() -> Path:
     return home() / "tools"
 
 
+def shipped_path(name: str) -> Path:
+    """A file or folder that ships with Jigwright (`prompts`, `models.toml`): the package's own copy when
+    installed from a wheel, else the one at the top of the checkout."""
+    packaged = SHIPPED_DIR / name
+    return packaged if packaged.exists() else PROJECT_ROOT / name
+
+
 def registry_file() -> Path:
     """The shipped models.toml (override with JIGWRIGHT_MODELS_TOML)."""
     env = os.environ.get("JIGWRIGHT_MODELS_TOML")
-    return Path(env) if env else PROJECT_ROOT / "models.toml"
+    return Path(env) if env else shipped_path("models.toml")
 
 
 def local_registry_file() -> Path:

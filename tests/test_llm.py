@@ -88,3 +88,14 @@ def test_header_reader_agrees_with_gguf_package(role):
     assert keys["tokenizer.chat_template"] == field("tokenizer.chat_template")
     assert ours["tensor_count"] == len(reader.tensors)
     assert ours["metadata_key_count"] == len([k for k in reader.fields if not k.startswith("GGUF.")])
+
+
+def test_the_fallback_of_the_real_executor_answers_a_closed_question_with_yes_or_no(executor):
+    # The real fallback path (execute.answer_directly): whatever the small model writes around it, a closed
+    # question's answer comes out as "yes" or "no", and the full reply is kept beside it. (Whether it is the
+    # right one is the model's business; bench/direct_answer_rules.py measures that on the demo queue.)
+    from runner.execute import answer_directly
+
+    out = answer_directly(executor, "Is container code REBU1080612 valid under ISO 6346?", seed=0)
+    assert out.answer in ("yes", "no"), out.text
+    assert len(out.text) > len(out.answer)

@@ -699,3 +699,11 @@ def test_arguments_with_numbers_the_question_does_not_state_send_the_task_to_the
     from runner.runloop import Engine
     assert Engine.misfit(words, "Which month is June?", {"month": 6}) is None
     assert "does not fit" in Engine.misfit(ADD, "Add 2 and 3.", {"a": 2, "b": 2027})
+
+
+def test_a_fallback_record_keeps_the_full_reply_beside_the_answer_it_asks_for(tmp_path, sandbox):
+    reply = "Elowen gave the tar crate to Cadan at noon.\nAnswer: Cadan holds the tar crate now."
+    q = write_queue(tmp_path / "q.jsonl", [{"id": "n", "question": "Elowen signed for the tar crate, then "
+                                                                    "swapped with Cadan. Who has it?"}])
+    _, recs = run_file(q, tmp_path / "out.jsonl", scripted(direct=reply), sandbox)
+    assert (recs[0]["status"], recs[0]["answer"], recs[0]["reply"]) == ("fallback", "Cadan", reply)
