@@ -565,6 +565,8 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
     out.print(escape(f"route: {rec.route}{conf}"), highlight=False, soft_wrap=True)
     if rec.arguments is not None:
         out.print(escape(f"arguments: {json.dumps(rec.arguments, ensure_ascii=False)}"), highlight=False, soft_wrap=True)
+    if rec.reply and str(rec.answer) != rec.reply.strip():
+        print_cut(out, "model's reply: " + " ".join(rec.reply.split()))
     if rec.error:
         out.print(f"[yellow]note:[/yellow] {escape(rec.error)}", highlight=False, soft_wrap=True)
     out.print(f"cost: {rec.cpu.model:.2f} CPU s model + {rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "

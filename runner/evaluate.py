@@ -730,7 +730,8 @@ def markdown(report: EvalReport) -> str:
         "not part of this number (the run report of `jigwright answer` measures them).",
         "- *executor-direct*, *builder-direct*: the model answers with no tool, the family's examples as earlier "
         f"chat turns, at most {DIRECT_MAX_TOKENS} tokens. *builder-steps*: the builder reasons step by step and "
-        f"ends with \"Answer: …\", at most {STEPS_MAX_TOKENS} tokens.",
+        f"ends with \"Answer: …\", at most {STEPS_MAX_TOKENS} tokens. Each direct reply is cut to the answer its "
+        "question asks for (yes/no, a number, a clock time, a date or a name; `runner/answerform.py`).",
         "- Accuracy with a 95% Wilson score interval. CPU s/task: model calls (all threads of this process) plus "
         "the tool's run in the sandbox; model loading is not included. CPU s per right answer: all the tasks' "
         "CPU over the right answers (build not included). Tokens: prompt + generated. The first task "
