@@ -690,11 +690,9 @@ def _list_first_sentences(group: typer.Typer) -> None:
             _list_first_sentences(sub.typer_instance)
 
 
-_list_first_sentences(app)
-
-
 def main() -> None:
     """Entry point: one-line errors with distinct exit codes; tracebacks only with --verbose."""
+    _list_first_sentences(app)
     try:
         app()
     except JigwrightError as exc:
