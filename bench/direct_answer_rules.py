@@ -12,7 +12,9 @@ every question falls back), made with:
     JIGWRIGHT_THREADS=1 JIGWRIGHT_HOME=$(mktemp -d) jigwright answer samples/queue.jsonl \\
         --out bench/data/fallback-executor-replies.jsonl --fallback executor --expected samples/queue_expected.jsonl
 
-(with `ln -s ~/.cache/jigwright/models $JIGWRIGHT_HOME/models` so the fetched models are found).
+(with `ln -s ~/.cache/jigwright/models $JIGWRIGHT_HOME/models` so the fetched models are found), and
+fallback-builder-replies.jsonl the same way with `--fallback builder` (12 of its 24 replies ran out of tokens
+before an answer; those are failures under either rule and are not counted here).
 
     .venv/bin/python bench/direct_answer_rules.py [ANSWERS.jsonl ...] [--expected FILE] [--show]
 """
@@ -64,7 +66,8 @@ def compare(records: list[dict], expected: dict[str, dict]) -> dict:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("answers", nargs="*", type=Path, default=[ROOT / "bench/data/fallback-executor-replies.jsonl"])
+    ap.add_argument("answers", nargs="*", type=Path, default=[ROOT / "bench/data/fallback-executor-replies.jsonl",
+                                                              ROOT / "bench/data/fallback-builder-replies.jsonl"])
     ap.add_argument("--expected", type=Path, default=ROOT / "samples/queue_expected.jsonl")
     ap.add_argument("--show", action="store_true", help="Print every answer the new rule changes.")
     ap.add_argument("--json", action="store_true")
