@@ -69,13 +69,21 @@ def main() -> None:
     ap.add_argument("answers", nargs="*", type=Path, default=[ROOT / "bench/data/fallback-executor-replies.jsonl",
                                                               ROOT / "bench/data/fallback-builder-replies.jsonl"])
     ap.add_argument("--expected", type=Path, default=ROOT / "samples/queue_expected.jsonl")
+    ap.add_argument("--queue", type=Path, default=ROOT / "samples/queue.jsonl",
+                    help="The queue the replies answered (checked: the recorded questions must be its questions).")
     ap.add_argument("--show", action="store_true", help="Print every answer the new rule changes.")
     ap.add_argument("--json", action="store_true")
     args = ap.parse_args()
     expected = {e["id"]: e for e in read_jsonl(args.expected)}
     results = {}
+    questions = {t["id"]: t["question"] for t in read_jsonl(args.queue)}
     for path in args.answers:
-        res = compare(read_jsonl(path), expected)
+        records = read_jsonl(path)
+        stale = [r["id"] for r in records if r.get("question") != questions.get(r["id"])]
+        if stale:
+            sys.exit(f"{path}: the questions of {', '.join(stale[:5])} differ from {args.queue}: the replies were "
+                     "recorded on another version of the queue; record them again (see this script's docstring)")
+        res = compare(records, expected)
         results[str(path)] = res
         if args.json:
             continue
