@@ -12,9 +12,9 @@ every question falls back), made with:
     JIGWRIGHT_THREADS=1 JIGWRIGHT_HOME=$(mktemp -d) jigwright answer samples/queue.jsonl \\
         --out bench/data/fallback-executor-replies.jsonl --fallback executor --expected samples/queue_expected.jsonl
 
-(with `ln -s ~/.cache/jigwright/models $JIGWRIGHT_HOME/models` so the fetched models are found), and
-fallback-builder-replies.jsonl the same way with `--fallback builder` (12 of its 24 replies ran out of tokens
-before an answer; those are failures under either rule and are not counted here).
+(with `ln -s ~/.cache/jigwright/models $JIGWRIGHT_HOME/models` so the fetched models are found); the builder's
+replies the same way with `--fallback builder`. A reply that ran out of tokens before its answer is a failure
+under either rule and is not counted.
 
     .venv/bin/python bench/direct_answer_rules.py [ANSWERS.jsonl ...] [--expected FILE] [--show]
 """
@@ -66,8 +66,8 @@ def compare(records: list[dict], expected: dict[str, dict]) -> dict:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("answers", nargs="*", type=Path, default=[ROOT / "bench/data/fallback-executor-replies.jsonl",
-                                                              ROOT / "bench/data/fallback-builder-replies.jsonl"])
+    ap.add_argument("answers", nargs="*", type=Path,
+                    default=sorted((ROOT / "bench/data").glob("fallback-*-replies.jsonl")))
     ap.add_argument("--expected", type=Path, default=ROOT / "samples/queue_expected.jsonl")
     ap.add_argument("--queue", type=Path, default=ROOT / "samples/queue.jsonl",
                     help="The queue the replies answered (checked: the recorded questions must be its questions).")

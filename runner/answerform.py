@@ -21,8 +21,9 @@ scoring, need "yes" and "Samphire". The rules, in order:
    - date: the first ISO date;
    - name: the names the question uses (a word with a capital letter, or a code with digits, that the question
      has at least once away from the start of a sentence (after ".", "!", "?" or a line break), so "The" or
-     "Berth" opening a sentence is not a name) found in the answer part: one distinct name gives it; several give the one the answer part starts
-     with, if any.
+     "Berth" opening a sentence is not a name) found in the answer part: one distinct name gives it; several
+     give the one the answer part starts with, if any, unless a list goes on from it ("Elowen/Loveday",
+     "Elowen or Loveday", "Elowen, Loveday": a hedge or a list is not one answer).
 4. When the rule for the kind finds nothing (or the answer part is "unknown"), the answer part stays as it is.
 
 The model's full reply is always kept beside the answer (the answer record's `reply`), so nothing is lost.
@@ -36,7 +37,7 @@ from typing import Any, Literal
 
 Kind = Literal["yes/no", "number", "time", "date", "name"]
 # Part of the eval's cache key for direct methods: change it when a rule changes, so cached answers are redone.
-RULES_VERSION = "1"
+RULES_VERSION = "2"
 
 _ANSWER_MARK = re.compile(r"answer\s*(?:is)?\s*[:=]\s*(.+)", re.IGNORECASE)
 _TIME = re.compile(r"(?<![\d:])([01]?\d|2[0-3]):([0-5]\d)(?![\d:])")
@@ -132,8 +133,10 @@ def _name(question: str, text: str) -> str | None:
         return found[0]
     lead = re.sub(r"^(the|a|an)\s+", "", text.strip(), flags=re.IGNORECASE)
     for n in found:
-        if re.match(rf"{re.escape(n)}(?![\w\-])", lead, re.IGNORECASE):
-            return n
+        m = re.match(rf"{re.escape(n)}(?![\w\-])", lead, re.IGNORECASE)
+        if m:
+            listed = re.match(r"\s*(/|,\s*[A-Z]|;|&|\+|(?i:or|and)\b)", lead[m.end():])
+            return None if listed else n
     return None
 
 

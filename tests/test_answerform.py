@@ -122,6 +122,9 @@ def test_names_are_the_ones_the_question_uses_away_from_a_sentence_start():
     assert reduce_answer(q, "Hesketh ends up with the bait crate.") == "Hesketh"
     assert reduce_answer(q, "Hesketh, after swapping with Ottilie.") == "Hesketh"
     assert reduce_answer(q, "Either Ottilie or Hesketh.") == "Either Ottilie or Hesketh."
+    assert reduce_answer(q, "Ottilie/Hesketh") == "Ottilie/Hesketh"  # a hedge is not one answer
+    assert reduce_answer(q, "Hesketh or Ottilie") == "Hesketh or Ottilie"
+    assert reduce_answer(q, "Hesketh, Ottilie") == "Hesketh, Ottilie"
     assert reduce_answer(q, "The storeman should ask for it.") == "The storeman should ask for it."
     codes = "The Thrift manifest lists NET-9, NET-39, ROPE-2. In yard order, which label is 2nd?"
     assert reduce_answer(codes, "The second label is NET-39.") == "NET-39"
