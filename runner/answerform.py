@@ -17,7 +17,8 @@ scoring, need "yes" and "Samphire". The rules, in order:
      ("no", "not", "false", "invalid", "incorrect", "wrong", "fails", and n't-forms) decides;
    - number: the first number standing on its own (not part of a date, a clock time or a code such as
      NET-127), as an integer when it is whole;
-   - time: the first clock time, as HH:MM;
+   - time: the first clock time, as HH:MM, with the ISO date written just before it if there is one
+     ("2026-09-02 19:55": a date given with the time is part of the answer);
    - date: the first ISO date;
    - name: the names the question uses (a word with a capital letter, or a code with digits, that the question
      has at least once away from the start of a sentence (after ".", "!", "?" or a line break), so "The" or
@@ -118,7 +119,11 @@ def _number(text: str) -> int | float | None:
 
 def _time(text: str) -> str | None:
     m = _TIME.search(text)
-    return f"{int(m.group(1)):02d}:{m.group(2)}" if m else None
+    if not m:
+        return None
+    hhmm = f"{int(m.group(1)):02d}:{m.group(2)}"
+    day = re.search(r"(\d{4}-\d{2}-\d{2})[T ]$", text[:m.start()])
+    return f"{day.group(1)} {hhmm}" if day else hhmm
 
 
 def _date(text: str) -> str | None:
