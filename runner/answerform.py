@@ -38,7 +38,7 @@ from typing import Any, Literal
 
 Kind = Literal["yes/no", "number", "time", "date", "name"]
 # Part of the eval's cache key for direct methods: change it when a rule changes, so cached answers are redone.
-RULES_VERSION = "2"
+RULES_VERSION = "3"
 
 _ANSWER_MARK = re.compile(r"answer\s*(?:is)?\s*[:=]\s*(.+)", re.IGNORECASE)
 _TIME = re.compile(r"(?<![\d:])([01]?\d|2[0-3]):([0-5]\d)(?![\d:])")
