@@ -45,7 +45,7 @@ def compare(records: list[dict], expected: dict[str, dict]) -> dict:
             continue
         old, new = answer_part(r["reply"]), direct_answer(r["question"], r["reply"])
         exp = expected.get(r["id"], {}).get("answer")
-        # "changed": a different answer, not only the same one typed as a number ('14' → 14)
+        # "changed": a different answer, not only the same one in another form ('14' → 14, 'Yes.' → 'yes')
         rows.append({"id": r["id"], "expected": exp, "old": old, "new": new,
                      "changed": normalise(old) != normalise(new), "retyped": old != new,
                      "old_right": exp is not None and answers_match(exp, old),
@@ -54,7 +54,7 @@ def compare(records: list[dict], expected: dict[str, dict]) -> dict:
     return {
         "fallback_answers": len(rows),
         "changed": sum(x["changed"] for x in rows),
-        "only_typed_as_number": sum(x["retyped"] and not x["changed"] for x in rows),
+        "same_answer_new_form": sum(x["retyped"] and not x["changed"] for x in rows),
         "with_expected_answer": len(scored),
         "right_old_rule": sum(x["old_right"] for x in scored),
         "right_new_rule": sum(x["new_right"] for x in scored),
@@ -89,8 +89,8 @@ def main() -> None:
             continue
         print(f"{path.resolve().relative_to(ROOT) if path.resolve().is_relative_to(ROOT) else path}:")
         print(f"  fallback answers with a recorded reply: {res['fallback_answers']}; "
-              f"changed by the new rule: {res['changed']} (and {res['only_typed_as_number']} the same answer, "
-              f"now a JSON number)")
+              f"changed by the new rule: {res['changed']} (and {res['same_answer_new_form']} the same answer "
+              f"in another form, such as '14' → 14)")
         print(f"  right against {args.expected.name} ({res['with_expected_answer']} with an expected answer): "
               f"old rule {res['right_old_rule']}, new rule {res['right_new_rule']}; "
               f"wrong→right {res['wrong_to_right']}, right→wrong {res['right_to_wrong']}")

@@ -531,8 +531,8 @@ def _print_score(answers: Path, expected: Path, console: Console) -> None:
     with ToolStore() as store:
         available = {t.name for t in store.tools(verified_only=True)}
     s = score_answers(records, rows(expected), available)
-    console.print(f"[bold]Against {expected}[/bold]: routing {s.routed_right}/{s.tasks} right; answers "
-                  f"{s.answers_right}/{s.answers_checked} right; questions that fit no tool routed to none: "
+    console.print(f"[bold]Against {expected}[/bold]:\n  routing {s.routed_right}/{s.tasks} right, answers "
+                  f"{s.answers_right}/{s.answers_checked} right\n  questions that fit no tool routed to none: "
                   f"{s.unrelated_to_none}/{s.unrelated}", highlight=False)
     for w in s.wrong:
         print_cut(console, f"  wrong: {' '.join(w.split())}")
