@@ -14,7 +14,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from runner.sandbox import Sandbox, network_isolation, run_once, syscall_filter  # noqa: E402
+from runner.sandbox import Sandbox, isolation_layers, run_once  # noqa: E402
 
 TRIVIAL = "def solve(x):\n    return x + 1\n"
 GOAL_MS = 20.0
@@ -49,8 +49,8 @@ def main() -> None:
     parser.add_argument("--warm", type=int, default=200)
     parser.add_argument("--cold", type=int, default=20)
     options = parser.parse_args()
-    print(f"network isolation: {network_isolation()}")
-    print(f"syscall filter:    {syscall_filter()}")
+    for layer in isolation_layers():
+        print(f"{layer.name:<15} {'held' if layer.active else 'MISSING'}: {layer.mode}")
     with Sandbox() as sandbox:
         timed(lambda i: sandbox.run(TRIVIAL, {"x": i}), 10)
         total, child = timed(lambda i: sandbox.run(TRIVIAL, {"x": i}), options.warm)
