@@ -4,8 +4,8 @@ Shared by tests/test_sandbox.py (the full sandbox: each program must end with th
 tests/test_sandbox_containment.py (the screen, the restricted builtins and the filtered module copies
 switched off: each program must be contained by the operating-system layer alone). Placeholders filled in
 by `fill`: TARGET (a path that must never come to exist), CANARY (an existing file that must keep its
-content, mode, times and attribute flags), SECRET (a file whose text must never come back), PORT (a loopback
-port the test listens on), HELPER (the pid of a process the test started).
+content, mode, times and attribute flags), SECRET (a file whose text must never come back), PUBLIC (a file every
+user may read), PORT (a loopback port the test listens on), HELPER (the pid of a process the test started).
 """
 
 from __future__ import annotations
@@ -220,12 +220,14 @@ NEW_CORPUS = [
          "cannot be encoded as UTF-8"),
     Case("lone_surrogate_message", "def solve():\n    raise ValueError('bad ' + chr(0xDFFF))\n", "exception",
          "ValueError: bad ? at line 2", line=2),
-    Case("read_hostname", "def solve():\n    return open('/etc/hostname').read()\n", "screen", "'open'"),
+    Case("read_world_readable_files", "def solve():\n    return [open('PUBLIC').read(), open('/etc/hostname').read()]\n",
+         "screen", "'open'"),
     Case("read_secret_file",
          "import os\n\ndef solve():\n    fd = os.open('SECRET', os.O_RDONLY)\n    return os.read(fd, 100).decode()\n",
          "screen", "'os'"),
     Case("list_host_folders",
-         "import os\n\ndef solve():\n    return [os.listdir('/'), os.stat('SECRET').st_size, os.getcwd()]\n", "screen", "'os'"),
+         "import os\n\ndef solve():\n    return [os.listdir(os.path.dirname('SECRET')), os.listdir('/'), os.stat('SECRET').st_size]\n",
+         "screen", "'os'"),
     Case("loopback_through_libc",
          "import ctypes\n\ndef solve():\n    libc = ctypes.CDLL(None, use_errno=True)\n    s = libc.socket(2, 1, 0)\n"
          "    addr = (ctypes.c_ubyte * 16)(2, 0, PORT >> 8, PORT & 255, 127, 0, 0, 1)\n"

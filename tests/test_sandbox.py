@@ -35,7 +35,8 @@ def assert_host_unharmed(sb: Sandbox, target: Path) -> None:
     assert follow_up.ok and follow_up.value == 42, follow_up
 
 
-PLACES = {"CANARY": "/nonexistent/canary", "SECRET": "/nonexistent/secret", "PORT": 9, "HELPER": 1}
+PLACES = {"CANARY": "/nonexistent/canary", "SECRET": "/nonexistent/secret", "PUBLIC": "/nonexistent/public",
+          "PORT": 9, "HELPER": 1}
 
 
 @pytest.mark.parametrize("case", ALL_CASES, ids=[c.name for c in ALL_CASES])

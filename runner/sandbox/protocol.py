@@ -132,26 +132,27 @@ def judge(data: bytes, status: int, limits: dict) -> dict:
     """The outcome of one call from the bytes the child sent and how it ended.
 
     Returns a result record, or `{"sandbox_error": ...}` only when the set-up frame (written before any tool
-    code ran) says set-up failed or never came.
+    code ran) says set-up failed or never came. What follows the set-up frame may come from the tool, so
+    nothing in it can produce a sandbox error.
     """
-    frames = split_frames(data)
-    if not frames:
-        if frames is None:
-            return {"sandbox_error": "the sandbox's child sent a malformed set-up message"}
+    if not data:
         if os.WIFSIGNALED(status) or os.waitstatus_to_exitcode(status) != 0:
             return {"sandbox_error": f"the sandbox's child ended during set-up ({_describe_status(status)})"}
         return {"sandbox_error": "the sandbox's child ended during set-up without a word"}
-    setup = frames[0]
-    if setup != SETUP_OK:
-        reason = setup.get("setup") if isinstance(setup, dict) else None
+    first = split_frames(data[: HEADER_BYTES + int.from_bytes(data[:HEADER_BYTES], "big")])
+    if not first:
+        return {"sandbox_error": "the sandbox's child sent a malformed set-up message"}
+    if first[0] != SETUP_OK:
+        reason = first[0].get("setup") if isinstance(first[0], dict) else None
         return {"sandbox_error": f"the sandbox's child could not set up: {str(reason)[:MESSAGE_CHARS]}"}
-    rest = frames[1:]
-    if frames is None or len(data) > result_cap(limits):
-        return _crashed("the tool's process sent a malformed result")
+    rest = split_frames(data[HEADER_BYTES + int.from_bytes(data[:HEADER_BYTES], "big") :])
+    malformed = _crashed("the tool's process sent a malformed result")
+    if rest is None:
+        return malformed
     if not rest:
         return signal_verdict(status, limits)
     if len(rest) > 1 or os.WIFSIGNALED(status) or os.waitstatus_to_exitcode(status) != 0:
-        return _crashed("the tool's process sent a malformed result")
+        return malformed
     return check_result(rest[0], limits)
 
 
@@ -174,7 +175,8 @@ def check_result(payload, limits: dict) -> dict:
         if set(payload) - {"status", "value", "stdout"}:
             return malformed
         try:
-            encoded = json.dumps(payload.get("value"), ensure_ascii=False, allow_nan=False).encode("utf-8")
+            encoded = json.dumps(payload.get("value"), ensure_ascii=False, allow_nan=False,
+                                 separators=(",", ":")).encode("utf-8")
         except UnicodeEncodeError:
             return {"status": "error", "error_kind": "bad_return", "stdout": stdout,
                     "message": "returned a string that cannot be encoded as UTF-8 (a lone surrogate)"}
