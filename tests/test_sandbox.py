@@ -374,3 +374,19 @@ def test_date_parsing_and_formatting_that_import_lazily_from_c_work():
         assert sb.run(code, {"day": "2026-12-01"}).value == ["Tuesday", 2]
         res = sb.run("import time\n\ndef solve():\n    return time.time()\n", {})
         assert res.error_kind == "screen" and "time" in res.message
+
+
+def test_every_demo_familys_hand_made_tool_runs_under_every_layer(sandbox: Sandbox) -> None:
+    """Tools that behave still work with no file access: each demo family's hand-written tool (bench/handmade.py)
+    gives the answer of the family's reference solver (samples/families) on every solved example."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
+    from handmade import ARGS, handmade_tool, solved_examples
+    from samples.families import FAMILIES
+
+    for family in FAMILIES:
+        tool = handmade_tool(family)
+        for example in solved_examples(family):
+            result = sandbox.run(tool.code, ARGS[family](example["params"], example["question"]))
+            assert result.ok and str(result.value) == str(example["answer"]), (family, result)
