@@ -176,6 +176,17 @@ def test_os_layer_blocks_reads_of_host_files(sandbox: Sandbox) -> None:
     assert result.error_kind == "exception" and "PermissionError" in result.message, result
 
 
+def test_the_child_holds_only_the_null_device_and_its_result_pipe(sandbox: Sandbox) -> None:
+    """What the allow-list leaves open (read, write, lseek on held descriptors) reaches nothing else."""
+    code = ("import errno, os\ndef solve():\n    held = []\n    for fd in range(256):\n        try:\n"
+            "            os.lseek(fd, 0, os.SEEK_CUR)\n            held.append([fd, 'seekable'])\n"
+            "        except OSError as exc:\n            if exc.errno != errno.EBADF:\n"
+            "                held.append([fd, errno.errorcode[exc.errno]])\n    return held\n")
+    held = run_unscreened(sandbox, code).value
+    assert held[:3] == [[0, "seekable"], [1, "seekable"], [2, "seekable"]] and len(held) == 4, held
+    assert held[3][1] == "ESPIPE", held  # the result pipe
+
+
 def test_working_folder_is_empty_and_environment_cleared(sandbox: Sandbox) -> None:
     worker = sandbox.worker_pid()
     folder = os.readlink(f"/proc/{worker}/cwd")

@@ -536,6 +536,7 @@ def _worker_main(config_text: str) -> None:
     gc.freeze()
     protocol.send(out_fd, {"ready": True, "pid": os.getpid(), "layers": layers})
     os.dup2(null, 2)
+    os.close(null)  # a child holds only 0-2 (all /dev/null) and its result pipe
     while True:
         request = protocol.recv(in_fd)
         if request is None:
