@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import socket
@@ -401,3 +402,72 @@ def test_every_demo_familys_hand_made_tool_runs_under_every_layer(sandbox: Sandb
         for example in solved_examples(family):
             result = sandbox.run(tool.code, ARGS[family](example["params"], example["question"]))
             assert result.ok and str(result.value) == str(example["answer"]), (family, result)
+
+
+LIBRARY_TOUR = '''
+import calendar
+import collections
+import dataclasses
+import decimal
+import enum
+import fractions
+import json
+import re
+import statistics
+import string
+import typing
+from datetime import date, datetime, timedelta
+
+
+class Tide(enum.Enum):
+    LOW = 1
+    HIGH = 2
+
+
+@dataclasses.dataclass(frozen=True)
+class Berth:
+    number: int
+    boat: str
+
+
+class Slot(typing.NamedTuple):
+    start: int
+    end: int
+
+
+def solve(when, amounts):
+    parsed = datetime.strptime(when, "%d %B %Y %I:%M %p")
+    money = [decimal.Decimal(a).quantize(decimal.Decimal("0.01"), rounding=decimal.ROUND_HALF_EVEN) for a in amounts]
+    return {
+        "parsed": parsed.isoformat(),
+        "formatted": parsed.strftime("%A %d %b %Y, %H:%M"),
+        "month": [calendar.month_name[parsed.month], calendar.monthrange(parsed.year, parsed.month)[1]],
+        "codecs": [b.hex() for b in ("Kelpwick".encode("utf-16-le"), "Quay".encode("latin-1"),
+                                     "kelpwick-quay.example".encode("idna"), "Pier".encode("cp1252"))],
+        "decoded": b"\\\\u00e9t\\\\u00e9".decode("unicode_escape"),
+        "money": [str(m) for m in money] + [str(sum(money))],
+        "fraction": str(fractions.Fraction(3, 8) + fractions.Fraction("0.125")),
+        "stats": [statistics.median([3, 1, 2, 8]), round(statistics.stdev([2, 4, 4, 4, 5, 5, 7, 9]), 6)],
+        "regex": re.findall(r"[A-Z]{4}\\d{7}", "boxes KQCU1234565 and KQCU7654321"),
+        "json": json.loads(json.dumps({"b": [1, 2.5, None]}, sort_keys=True)),
+        "counter": collections.Counter("harbour").most_common(2),
+        "template": string.Template("$boat at berth $n").substitute(boat="Tern", n=4),
+        "enum": [Tide.HIGH.name, Tide(1).name],
+        "records": [dataclasses.asdict(Berth(4, "Tern")), list(Slot(1, 5))],
+        "dates": [(date(2026, 12, 25) - date(2026, 12, 1)).days, (date(2026, 3, 1) - timedelta(days=1)).isoformat()],
+        "grouped": f"{1234567:,}",
+    }
+'''
+
+
+def test_library_paths_a_tool_may_take_work_without_files(sandbox: Sandbox) -> None:
+    """Standard-library paths that import or read lazily (strptime, codecs, decimal contexts...) work in the
+    child, which may open no file; the reference is the same code run by the host's own CPython."""
+    args = {"when": "07 March 2026 04:30 PM", "amounts": ["12.345", "0.125", "7"]}
+    assert screen(LIBRARY_TOUR, entry="solve") == []
+    result = sandbox.run(LIBRARY_TOUR, args)
+    assert result.ok, result
+    namespace: dict = {}
+    exec(compile(LIBRARY_TOUR, "<reference>", "exec"), namespace)
+    expected = json.loads(json.dumps(namespace["solve"](**args)))
+    assert result.value == expected

@@ -39,34 +39,24 @@ def send(fd: int, obj: dict) -> None:
 
 def recv(fd: int):
     """Read one message on a blocking descriptor (worker side); None at end of input."""
-    header = _read_all(fd, HEADER_BYTES)
+    header = read_exact(fd, HEADER_BYTES)
     if header is None:
         return None
-    body = _read_all(fd, int.from_bytes(header, "big"))
+    body = read_exact(fd, int.from_bytes(header, "big"))
     return None if body is None else json.loads(body)
 
 
-def _read_all(fd: int, size: int):
+def read_exact(fd: int, size: int, deadline: float | None = None):
+    """Read `size` bytes, before `deadline` if given (host side); None at end of input, TimeoutError past it."""
     chunks = []
     while size:
-        chunk = os.read(fd, min(size, 1 << 20))
-        if not chunk:
-            return None
-        chunks.append(chunk)
-        size -= len(chunk)
-    return b"".join(chunks)
-
-
-def read_exact(fd: int, size: int, deadline: float):
-    """Read `size` bytes before `deadline` (host side); None at end of input, TimeoutError past the deadline."""
-    chunks = []
-    while size:
-        remaining = deadline - time.monotonic()
-        if remaining <= 0:
-            raise TimeoutError
-        ready, _, _ = select.select([fd], [], [], remaining)
-        if not ready:
-            continue
+        if deadline is not None:
+            remaining = deadline - time.monotonic()
+            if remaining <= 0:
+                raise TimeoutError
+            ready, _, _ = select.select([fd], [], [], remaining)
+            if not ready:
+                continue
         chunk = os.read(fd, min(size, 1 << 20))
         if not chunk:
             return None
