@@ -71,3 +71,12 @@ def test_wait_statuses_used_here_mean_what_they_say() -> None:
     # The constants above are wait(2) statuses (common practice: exit code in bits 8-15, signal in 0-6).
     assert os.WIFEXITED(EXITED_3) and os.WEXITSTATUS(EXITED_3) == 3
     assert os.WIFSIGNALED(KILLED_9) and os.WTERMSIG(KILLED_9) == signal.SIGKILL
+
+
+def test_hostile_json_in_a_result_frame_is_malformed_not_an_error_in_the_worker() -> None:
+    for body in [b"[" * 100_000 + b"]" * 100_000, b'{"status":"ok","value":1e999,"stdout":""}',
+                 b'{"status":"ok","value":' + b"9" * 5000 + b',"stdout":""}', b'{"status":"ok","value":NaN,"stdout":""}']:
+        data = SETUP + len(body).to_bytes(4, "big") + body
+        outcome = protocol.judge(data, EXITED_0, LIMITS)
+        assert outcome["error_kind"] in ("crashed", "bad_return"), (body[:40], outcome)
+        json.dumps(outcome, allow_nan=False)  # what the worker then sends on is always valid JSON
