@@ -16,7 +16,7 @@ from runner.errors import SandboxError
 from runner.sandbox import Limits, RunResult, Sandbox, network_isolation, run_once, screen, syscall_filter
 from sandbox_corpus import ALL_CASES, CORPUS, NEW_CORPUS, NORMAL, Case, fill
 
-LIMITS = Limits(cpu_seconds=1, wall_seconds=3, memory_mb=128)
+LIMITS = Limits(cpu_seconds=1, wall_seconds=8, memory_mb=128)  # wall room for a busy shared machine
 
 
 @pytest.fixture(scope="module")

@@ -1,7 +1,8 @@
 """The operating-system layer for the per-call child: rlimits, privileges, file-system restriction and
 an allow-list syscall filter (standard library only, plus libseccomp through pyseccomp when present).
 
-The worker prepares everything once (the compiled filter, the Landlock ruleset); each child then only
+The host compiles the filter with libseccomp (once per process); the worker prepares the rest once (the
+Landlock ruleset, the built-in filter if libseccomp is missing); each child then only
 applies it, in this order: no-new-privileges, privilege drop (as root), rlimits, Landlock, seccomp. After
 `harden` returns, the child can compute, read and write the descriptors it already holds, read clocks and
 exit; opening files, sockets, new processes or threads, ioctl, resource-limit and attribute changes,
@@ -203,26 +204,33 @@ class _SockFprog(ctypes.Structure):
     _fields_ = [("len", ctypes.c_ushort), ("filter", ctypes.POINTER(_SockFilter))]
 
 
-def _from_libseccomp(binding_path: str) -> bytes:
-    """The allow-list compiled by libseccomp (through the pyseccomp binding) as raw classic BPF."""
-    import importlib.util
+def compile_with_libseccomp() -> tuple:
+    """The allow-list compiled by libseccomp (through the pyseccomp binding) as raw classic BPF, and a note.
 
-    spec = importlib.util.spec_from_file_location("pyseccomp", binding_path)
-    binding = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(binding)
-    program = binding.SyscallFilter(defaction=binding.ERRNO(errno.EPERM))
-    for name in ALLOWED_SYSCALLS:
-        try:
-            program.add_rule(binding.ALLOW, name)
-        except (ValueError, OSError):  # not a syscall on this machine (e.g. `time` on arm64)
-            continue
-    out = os.memfd_create("jigwright-seccomp")
+    Called on the host, once per process: the worker runs without site-packages and gets the bytes.
+    Returns (None, why) when the binding or the library is missing.
+    """
     try:
-        program.export_bpf(_Descriptor(out))
-        size = os.lseek(out, 0, os.SEEK_END)
-        return os.pread(out, size, 0)
-    finally:
-        os.close(out)
+        import pyseccomp as binding
+    except ImportError:
+        return None, "the pyseccomp binding is not installed"
+    except Exception as exc:  # noqa: BLE001 - e.g. RuntimeError when libseccomp itself is missing
+        return None, f"libseccomp unusable ({type(exc).__name__}: {str(exc)[:120]})"
+    try:
+        program = binding.SyscallFilter(defaction=binding.ERRNO(errno.EPERM))
+        for name in ALLOWED_SYSCALLS:
+            try:
+                program.add_rule(binding.ALLOW, name)
+            except (ValueError, OSError):  # not a syscall on this machine (e.g. `time` on arm64)
+                continue
+        out = os.memfd_create("jigwright-seccomp")
+        try:
+            program.export_bpf(_Descriptor(out))
+            return os.pread(out, os.lseek(out, 0, os.SEEK_END), 0), "compiled by libseccomp"
+        finally:
+            os.close(out)
+    except Exception as exc:  # noqa: BLE001 - any failure of the binding falls back to the built-in program
+        return None, f"libseccomp failed ({type(exc).__name__}: {str(exc)[:120]})"
 
 
 class _Descriptor:
@@ -249,20 +257,16 @@ def _hand_built() -> bytes:
     return bytes(out)
 
 
-def prepare_syscall_filter(binding_path) -> tuple:
-    """Compile the allow-list once in the worker; returns (active, mode, detail). Children install it."""
-    program, source = None, ""
-    if binding_path:
-        try:
-            program, source = _from_libseccomp(binding_path), "compiled by libseccomp"
-        except Exception as exc:  # noqa: BLE001 - any failure of the binding falls back to the built-in program
-            source = f"libseccomp unusable ({type(exc).__name__}: {str(exc)[:120]}); "
-    else:
-        source = "the pyseccomp binding is not installed; "
+def prepare_syscall_filter(program, note: str) -> tuple:
+    """Load the allow-list once in the worker; returns (active, mode, detail). Children install it.
+
+    `program` is the filter libseccomp compiled on the host, or None; then the built-in x86_64 program is used.
+    """
+    source = note
     if program is None:
         if os.uname().machine != "x86_64":
-            return False, "none", f"{source}no built-in syscall table for {os.uname().machine}: no syscall filter"
-        program, source = _hand_built(), source + "hand-assembled BPF (x86_64)"
+            return False, "none", f"{note}; no built-in syscall table for {os.uname().machine}: no syscall filter"
+        program, source = _hand_built(), f"{note}; hand-assembled BPF (x86_64)"
     buffer = ctypes.create_string_buffer(program, len(program))
     fprog = _SockFprog(len(program) // ctypes.sizeof(_SockFilter), ctypes.cast(buffer, ctypes.POINTER(_SockFilter)))
     _state["filter"] = (fprog, buffer)

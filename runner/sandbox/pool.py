@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import functools
-import importlib.util
 import json
 import os
 import shutil
@@ -21,7 +20,7 @@ from pydantic import ValidationError
 
 from runner.errors import SandboxError
 
-from . import protocol
+from . import oslimits, protocol
 from .records import Layer, Limits, RunResult
 from .screen import screen, screen_result
 
@@ -38,13 +37,9 @@ LAYER_TITLES = {
 
 
 @functools.lru_cache(maxsize=1)
-def _seccomp_binding() -> str | None:
-    """Where the pyseccomp binding lives, for the worker to load by path (it runs without site-packages)."""
-    try:
-        spec = importlib.util.find_spec("pyseccomp")
-    except (ImportError, ValueError):
-        return None
-    return spec.origin if spec is not None and spec.origin else None
+def _compiled_filter() -> tuple[bytes | None, str]:
+    """The allow-list syscall filter as libseccomp compiles it, once per process (the worker has no site-packages)."""
+    return oslimits.compile_with_libseccomp()
 
 
 class _WorkerLost(Exception):
@@ -56,7 +51,9 @@ class _Worker:
 
     def __init__(self) -> None:
         self.folder = tempfile.mkdtemp(prefix="jigwright-sandbox-")
-        config = json.dumps({"parent": os.getpid(), "seccomp_binding": _seccomp_binding()})
+        program, note = _compiled_filter()
+        config = json.dumps({"parent": os.getpid(), "seccomp_program": program.hex() if program else None,
+                             "seccomp_note": note})
         try:
             self.proc = subprocess.Popen(
                 [sys.executable, "-I", "-S", "-B", str(WORKER_PATH), config],

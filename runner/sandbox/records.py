@@ -10,7 +10,7 @@ ErrorKind = Literal["screen", "timeout", "memory", "exception", "bad_return", "o
 
 
 class Limits(BaseModel):
-    """Resource limits for one tool call. File access, sockets and new processes are always denied."""
+    """Resource limits for one tool call. File access, sockets and new processes are denied by the OS layers."""
 
     model_config = ConfigDict(frozen=True, extra="forbid")
 

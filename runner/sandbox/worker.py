@@ -523,7 +523,9 @@ def _worker_main(config_text: str) -> None:
     _state.update(in_fd=in_fd, out_fd=out_fd, clock_ticks=os.sysconf("SC_CLK_TCK"))
     netns, why = oslimits.unshare_network()
     layers = {
-        "syscall_filter": oslimits.prepare_syscall_filter(config.get("seccomp_binding")),
+        "syscall_filter": oslimits.prepare_syscall_filter(
+            bytes.fromhex(config["seccomp_program"]) if config.get("seccomp_program") else None,
+            config.get("seccomp_note", "no filter was compiled on the host")),
         "files": oslimits.prepare_landlock(),
         "privileges": oslimits.prepare_privileges(),
     }
