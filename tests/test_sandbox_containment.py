@@ -115,3 +115,23 @@ def test_every_layer_is_reported_and_held() -> None:
     for name in ("syscall_filter", "files", "privileges", "network"):
         assert LAYERS[name].active and LAYERS[name].detail, LAYERS[name]
     assert LAYERS["syscall_filter"].mode == "allow-list"
+
+
+def test_checkup_lists_every_layer_as_json_and_as_a_table(tmp_home) -> None:
+    import json
+    import os
+    import subprocess
+    import sys
+
+    def cli(*args: str) -> subprocess.CompletedProcess:
+        return subprocess.run([sys.executable, "-c", "from runner.cli import main; main()", "checkup", *args],
+                              capture_output=True, text=True, env={**os.environ, "COLUMNS": "80"})
+
+    facts = json.loads(cli("--json").stdout)
+    assert [layer["name"] for layer in facts["sandbox_layers"]] == ["syscall_filter", "files", "privileges", "network"]
+    for layer in facts["sandbox_layers"]:
+        assert layer["active"] == LAYERS[layer["name"]].active and layer["mode"] and layer["detail"]
+    table = cli().stdout
+    for title in ("syscall filter", "file-system restriction", "privilege drop", "network namespace"):
+        assert title in table
+    assert max(len(line) for line in table.splitlines()) <= 80
