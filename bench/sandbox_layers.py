@@ -21,7 +21,7 @@ from sandbox_world import World  # noqa: E402
 
 LAYERS = ("syscall_filter", "files", "privileges")
 RISKY_WORDS = ("fork", "subprocess", "system(", "Thread", "_thread", "kill(")
-LIMITS = Limits(cpu_seconds=1, wall_seconds=3, memory_mb=128)
+LIMITS = Limits(cpu_seconds=1, wall_seconds=8, memory_mb=128)
 
 
 def risky(case) -> bool:

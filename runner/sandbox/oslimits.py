@@ -114,6 +114,7 @@ def unshare_network() -> tuple:
 
 # No account has this id, so a child running under it owns no file and shares its uid with no process.
 UNPRIVILEGED_ID = 2_100_000_000
+NOBODY_ID = 65534  # the conventional unprivileged account, when the id above is not mapped (containers)
 
 
 def _last_capability() -> int:
@@ -124,25 +125,45 @@ def _last_capability() -> int:
         return 40
 
 
+def _mapped(which: str, ident: int) -> bool:
+    """Whether `ident` exists in this user namespace (/proc/self/uid_map or gid_map: inside, outside, count)."""
+    try:
+        with open(f"/proc/self/{which}_map", encoding="ascii") as fh:
+            rows = [tuple(int(x) for x in line.split()) for line in fh if line.strip()]
+    except (OSError, ValueError):
+        return True
+    return any(inside <= ident < inside + count for inside, _, count in rows)
+
+
 def prepare_privileges() -> tuple:
-    """Decide, once in the worker, whether children drop privileges; returns (drop, mode, detail)."""
+    """Decide, once in the worker, whether and to which id children drop; returns (drop, mode, detail)."""
     if os.geteuid() != 0:
-        return False, "not needed", f"runs as uid {os.geteuid()}, which is not root: no privileges to drop"
-    _state["last_cap"] = _last_capability()
-    return True, "uid/gid dropped", (f"as root, each child switches to uid/gid {UNPRIVILEGED_ID} (no account) "
+        return False, "not root", (f"runs as uid {os.geteuid()}: nothing to drop, but the child keeps that user's "
+                                   "uid, so only the syscall filter and Landlock keep it from that user's files")
+    ident = next((i for i in (UNPRIVILEGED_ID, NOBODY_ID) if _mapped("uid", i) and _mapped("gid", i)), None)
+    if ident is None:
+        return False, "none", "running as root, but no unprivileged uid/gid is mapped in this user namespace"
+    _state.update(last_cap=_last_capability(), drop_to=ident)
+    who = "no account" if ident == UNPRIVILEGED_ID else "nobody"
+    return True, "uid/gid dropped", (f"as root, each child switches to uid/gid {ident} ({who}) "
                                      "with no supplementary groups and no capabilities")
 
 
 def drop_privileges() -> None:
     """As root: empty the capability bounding and ambient sets, then switch to the unprivileged ids."""
+    ident = _state["drop_to"]
     for cap in range(_state["last_cap"] + 1):
         libc().prctl(_PR_CAPBSET_DROP, cap, 0, 0, 0)
     libc().prctl(_PR_CAP_AMBIENT, _PR_CAP_AMBIENT_CLEAR_ALL, 0, 0, 0)
     os.setgroups([])
-    os.setresgid(UNPRIVILEGED_ID, UNPRIVILEGED_ID, UNPRIVILEGED_ID)
-    os.setresuid(UNPRIVILEGED_ID, UNPRIVILEGED_ID, UNPRIVILEGED_ID)  # clears permitted and effective caps
-    if os.getresuid() != (UNPRIVILEGED_ID,) * 3 or os.getresgid() != (UNPRIVILEGED_ID,) * 3:
+    os.setresgid(ident, ident, ident)
+    os.setresuid(ident, ident, ident)  # clears permitted and effective capabilities
+    if os.getresuid() != (ident,) * 3 or os.getresgid() != (ident,) * 3:
         raise SetupError("the privilege drop did not take")
+
+
+def dropped_to() -> int | None:
+    return _state.get("drop_to")
 
 
 # --- Landlock (file system, TCP and signals) --------------------------------------------------------------

@@ -446,7 +446,7 @@ def _probe_layers(layers: dict) -> dict:
                 data = (ctypes.c_uint32 * 6)()
                 if os.uname().machine == "x86_64":
                     oslimits.libc().syscall(125, header, data)  # capget
-                found["privileges"] = (os.getresuid() == (oslimits.UNPRIVILEGED_ID,) * 3 and not any(data),
+                found["privileges"] = (os.getresuid() == (oslimits.dropped_to(),) * 3 and not any(data),
                                        f"uid {os.getresuid()}, capabilities {[hex(v) for v in data]}")
             if layers["files"][0]:
                 try:
