@@ -45,7 +45,6 @@ def _one_line(text, limit: int = protocol.MESSAGE_CHARS) -> str:
     return text if len(text) <= limit else text[: limit - 1] + "…"
 
 
-
 def _module_copy(name: str, cache: dict):
     """A fresh, filtered copy of an allow-listed module: no private names, no other modules, no gadgets."""
     import importlib
@@ -68,11 +67,6 @@ def _module_copy(name: str, cache: dict):
         if sub.startswith(name + "."):
             setattr(copy, sub[len(name) + 1 :], _module_copy(sub, cache))
     return copy
-
-
-# Modules that allowed modules import lazily from C code (datetime.strptime imports _strptime, strftime
-# imports time). The screen rejects importing them in tool code, so only those C paths reach them.
-LAZY_INTERNAL_MODULES = frozenset({"_strptime", "time"})
 
 
 def _make_guarded_import():
