@@ -661,7 +661,7 @@ def eval_tables(report) -> list:
 def _layers_table(layers) -> Table:
     from .sandbox import LAYER_TITLES
 
-    t = screen_table("Sandbox: operating-system layers, each checked in a test child")
+    t = screen_table("Sandbox layers, checked in a test child")
     t.add_column("layer", no_wrap=True)
     t.add_column("held", no_wrap=True)
     t.add_column("how", no_wrap=True)
