@@ -7,6 +7,7 @@ The goal is a warm median under 20 ms on a 2-core machine.
 from __future__ import annotations
 
 import argparse
+import os
 import statistics
 import sys
 import time
@@ -14,7 +15,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from runner.sandbox import Sandbox, network_isolation, run_once, syscall_filter  # noqa: E402
+from runner.sandbox import Sandbox, isolation_layers, run_once  # noqa: E402
 
 TRIVIAL = "def solve(x):\n    return x + 1\n"
 GOAL_MS = 20.0
@@ -25,17 +26,19 @@ def percentile(samples: list[float], fraction: float) -> float:
     return ordered[min(len(ordered) - 1, round(fraction * (len(ordered) - 1)))]
 
 
-def timed(call, count: int) -> tuple[list[float], list[float]]:
-    """Milliseconds per call as the caller sees it, and the child's own fork-to-reap wall time."""
-    total, child = [], []
+def timed(call, count: int) -> tuple[list[float], list[float], list[float]]:
+    """Milliseconds per call as the caller sees it, the child's fork-to-reap wall time, and the child's CPU time
+    (the last barely depends on how busy the machine is)."""
+    total, child, cpu = [], [], []
     for i in range(count):
         started = time.perf_counter()
         result = call(i)
         total.append((time.perf_counter() - started) * 1000)
         child.append(result.wall_seconds * 1000)
+        cpu.append(result.cpu_seconds * 1000)
         if not result.ok or result.value != i + 1:
             raise SystemExit(f"call failed: {result.message}")
-    return total, child
+    return total, child, cpu
 
 
 def report(label: str, samples: list[float]) -> float:
@@ -49,16 +52,18 @@ def main() -> None:
     parser.add_argument("--warm", type=int, default=200)
     parser.add_argument("--cold", type=int, default=20)
     options = parser.parse_args()
-    print(f"network isolation: {network_isolation()}")
-    print(f"syscall filter:    {syscall_filter()}")
+    for layer in isolation_layers():
+        print(f"{layer.name:<15} {'held' if layer.active else 'MISSING'}: {layer.mode}")
     with Sandbox() as sandbox:
         timed(lambda i: sandbox.run(TRIVIAL, {"x": i}), 10)
-        total, child = timed(lambda i: sandbox.run(TRIVIAL, {"x": i}), options.warm)
+        total, child, cpu = timed(lambda i: sandbox.run(TRIVIAL, {"x": i}), options.warm)
         warm = report("warm Sandbox.run", total)
         report("  of which fork..reap", child)
-    total, child = timed(lambda i: run_once(TRIVIAL, {"x": i}), options.cold)
+        report("  child CPU time", cpu)
+    total, child, _ = timed(lambda i: run_once(TRIVIAL, {"x": i}), options.cold)
     report("cold run_once", total)
     print(f"warm median / {GOAL_MS:g} ms goal = {warm / GOAL_MS:.2f}")
+    print(f"load average when done: {' '.join(f'{x:.1f}' for x in os.getloadavg())} on {os.cpu_count()} CPUs")
 
 
 if __name__ == "__main__":

@@ -658,18 +658,46 @@ def eval_tables(report) -> list:
     return tables
 
 
-@app.command("checkup")
-def checkup() -> None:
-    """Check what this machine offers. Cores, model files and the sandbox's isolation."""
-    from .meter import physical_cores
-    from .sandbox import network_isolation
+def _layers_table(layers) -> Table:
+    from .sandbox import LAYER_TITLES
 
+    t = screen_table("Sandbox layers, checked in a test child")
+    t.add_column("layer", no_wrap=True)
+    t.add_column("held", no_wrap=True)
+    t.add_column("how", no_wrap=True)
+    for layer in layers:
+        held = "[green]yes[/green]" if layer.active else "[yellow]NO[/yellow]"
+        t.add_row(LAYER_TITLES[layer.name], held, layer.mode)
+    return t
+
+
+@app.command("checkup")
+def checkup(as_json: bool = typer.Option(False, "--json", help="The same facts as JSON on stdout.")) -> None:
+    """Check what this machine offers. Cores, model files and each layer of the sandbox, and why one is missing."""
+    from .meter import physical_cores
+    from .sandbox import LAYER_TITLES, isolation_layers
+
+    layers = isolation_layers()
+    rows = models.rows(settings.load_registry())
+    if as_json:
+        out.print_json(json.dumps({
+            "home": str(settings.home()),
+            "physical_cores": physical_cores(),
+            "models": {r.name: r.status for r in rows},
+            "sandbox_layers": [layer.model_dump() for layer in layers],
+        }))
+        return
     out.print(f"JIGWRIGHT_HOME: {settings.home()}")
     out.print(f"physical cores (llama.cpp threads): {physical_cores()}")
-    for r in models.rows(settings.load_registry()):
+    for r in rows:
         out.print(f"model {r.name}: {r.status}")
-    ok, why = network_isolation()
-    out.print(f"sandbox network isolation: {'[green]available[/green]' if ok else '[yellow]NOT available[/yellow]'} ({why})")
+    out.print(_layers_table(layers))
+    for layer in layers:
+        out.print(f"{LAYER_TITLES[layer.name]}: {layer.detail}", highlight=False)
+    missing = [layer.name for layer in layers if not layer.active]
+    if missing:
+        out.print("[yellow]Some layers are missing here[/yellow]: tool code is less contained; see README, "
+                  "'What the sandbox does and does not protect against'.")
 
 
 def first_sentence(text: str) -> str:

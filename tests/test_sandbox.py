@@ -2,21 +2,21 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import socket
 import threading
 import time
-from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
 
 from runner.errors import SandboxError
 from runner.sandbox import Limits, RunResult, Sandbox, network_isolation, run_once, screen, syscall_filter
+from sandbox_corpus import ALL_CASES, CORPUS, NEW_CORPUS, NORMAL, Case, fill
 
-LIMITS = Limits(cpu_seconds=1, wall_seconds=3, memory_mb=128)
-NORMAL = "def solve(x):\n    return x * 2\n"
+LIMITS = Limits(cpu_seconds=1, wall_seconds=8, memory_mb=128)  # wall room for a busy shared machine
 
 
 @pytest.fixture(scope="module")
@@ -36,99 +36,13 @@ def assert_host_unharmed(sb: Sandbox, target: Path) -> None:
     assert follow_up.ok and follow_up.value == 42, follow_up
 
 
-@dataclass(frozen=True)
-class Case:
-    name: str
-    code: str
-    kind: str
-    contains: str = ""
-    line: int | None = None
-    args: dict | None = None
+PLACES = {"CANARY": "/nonexistent/canary", "SECRET": "/nonexistent/secret", "PUBLIC": "/nonexistent/public",
+          "PORT": 9, "HELPER": 1}
 
 
-CORPUS = [
-    Case("infinite_loop", "def solve():\n    while True:\n        pass\n", "timeout", "CPU time limit of 1 s"),
-    Case("uncatchable_loop", "def solve():\n    while True:\n        try:\n            while True:\n                pass\n"
-         "        except BaseException:\n            pass\n", "timeout"),
-    Case("module_level_loop", "while True:\n    pass\ndef solve():\n    return 1\n", "timeout", "CPU time limit"),
-    Case("big_int_power", "def solve():\n    return 10 ** 10 ** 8\n", "timeout"),
-    Case("deep_recursion", "def solve():\n    def f(n):\n        return f(n + 1)\n    return f(0)\n", "exception",
-         "RecursionError: maximum recursion depth exceeded", line=3),
-    Case("ten_gib_allocation", "def solve():\n    return bytearray(10 * 1024 ** 3)\n", "memory",
-         "MemoryError: memory limit of 128 MB exceeded at line 2", line=2),
-    Case("memory_growth", "def solve():\n    x = []\n    while True:\n        x.append(bytearray(10 ** 7))\n", "memory", line=4),
-    Case("list_growth_caught", "def solve():\n    x = []\n    try:\n        while True:\n            x.append(' ' * 10 ** 6)\n"
-         "    except MemoryError:\n        x = None\n    return 1 / 0\n", "exception", "ZeroDivisionError", line=8),
-    Case("fork_bomb", "import os\ndef solve():\n    while True:\n        os.fork()\n", "screen",
-         "import of 'os' is not allowed (rule: import-allow-list) at line 1", line=1),
-    Case("subprocess", "import subprocess\ndef solve():\n    subprocess.run(['touch', 'TARGET'])\n", "screen", "import-allow-list"),
-    Case("os_system", "from os import system\ndef solve():\n    return system('touch TARGET')\n", "screen", "'os'"),
-    Case("file_write", "def solve():\n    with open('TARGET', 'w') as fh:\n        fh.write('x')\n", "screen",
-         "name 'open' is not allowed (rule: denied-name) at line 2", line=2),
-    Case("read_passwd", "def solve():\n    return open('/etc/passwd').read()\n", "screen", "denied-name"),
-    Case("socket_connect", "import socket\ndef solve():\n    socket.create_connection(('127.0.0.1', 9))\n", "screen", "'socket'"),
-    Case("ctypes", "import ctypes\ndef solve():\n    return ctypes.string_at(0)\n", "screen", "'ctypes'"),
-    Case("importlib", "import importlib\ndef solve():\n    return importlib.import_module('os').getcwd()\n", "screen", "'importlib'"),
-    Case("dunder_import", "def solve():\n    return __import__('os').system('touch TARGET')\n", "screen", "'__import__'"),
-    Case("subclasses_walk", "def solve():\n    return [c for c in ().__class__.__base__.__subclasses__()]\n", "screen",
-         "dunder-attribute"),
-    Case("globals_walk", "def solve():\n    return solve.__globals__['__builtins__']\n", "screen", "'__globals__'"),
-    Case("builtins_trick", "def solve():\n    return __builtins__['open']('TARGET', 'w')\n", "screen", "'__builtins__'"),
-    Case("getattr_built_dunder", "def solve():\n    d = '_' * 2\n    return getattr((), d + 'class' + d)\n", "screen",
-         "name 'getattr' is not allowed", line=3),
-    Case("exec_string", "def solve():\n    exec('import os; os.system(\"touch TARGET\")')\n", "screen", "'exec'"),
-    Case("eval_string", "def solve():\n    return eval('1 + 1')\n", "screen", "'eval'"),
-    Case("compile_string", "def solve():\n    return compile('1', 'x', 'eval')\n", "screen", "'compile'"),
-    Case("huge_print", "def solve():\n    while True:\n        print('x' * 1000)\n", "output",
-         "printed more than 65536 bytes", line=3),
-    Case("print_overflow_swallowed", "def solve():\n    for _ in range(1000):\n        try:\n            print('y' * 1000)\n"
-         "        except BaseException:\n            pass\n    return 1\n", "output", line=4),
-    Case("return_set", "def solve():\n    return {1, 2}\n", "bad_return", "returned a set"),
-    Case("return_object", "class Box:\n    pass\ndef solve():\n    return Box()\n", "bad_return", "returned a Box object"),
-    Case("return_nan", "def solve():\n    return float('nan')\n", "bad_return", "returned NaN"),
-    Case("return_nested_infinity", "def solve():\n    return {'a': [1, float('inf')]}\n", "bad_return",
-         "returned Infinity at ['a'][1]"),
-    Case("return_too_large", "def solve():\n    return 'x' * (2 * 1024 * 1024)\n", "bad_return", "bytes of JSON"),
-    Case("return_huge_int", "def solve():\n    return 10 ** 5000\n", "bad_return", "JSON"),
-    Case("return_int_keys", "def solve():\n    return {1: 'a'}\n", "bad_return", "non-string key 1"),
-    Case("return_generator", "def solve():\n    return (i for i in range(3))\n", "bad_return", "generator"),
-    Case("return_cycle", "def solve():\n    x = []\n    x.append(x)\n    return x\n", "bad_return", "nested deeper"),
-    Case("exception_line", "def solve(items):\n    total = 0\n    for x in items:\n        total += 10 / x\n    return total\n",
-         "exception", "ZeroDivisionError: division by zero at line 4", line=4, args={"items": [1, 0]}),
-    Case("exception_in_library", "import json\ndef solve():\n    return json.loads('{bad')\n", "exception",
-         "JSONDecodeError", line=3),
-    Case("system_exit", "def solve():\n    raise SystemExit(3)\n", "exception", "SystemExit: 3 at line 2", line=2),
-    Case("wrong_arguments", NORMAL, "exception", "unexpected keyword argument 'y'", args={"y": 1}),
-    Case("signal_handler", "import signal\ndef solve():\n    signal.signal(signal.SIGPROF, signal.SIG_IGN)\n", "screen", "'signal'"),
-    Case("threads_outlive_call", "import threading\ndef solve():\n    threading.Thread(target=lambda: None).start()\n",
-         "screen", "'threading'"),
-    Case("syntax_error", "def solve():\n    x = (1,\n    return x\n", "screen", "SyntaxError: '(' was never closed", line=2),
-    Case("sys_modules", "import sys\ndef solve():\n    return sys.modules['os'].system('touch TARGET')\n", "screen", "'sys'"),
-    Case("module_attribute_leak", "import typing\ndef solve():\n    return typing.sys.modules['os'].system('touch TARGET')\n",
-         "screen", "attribute 'sys' is not allowed"),
-    Case("type_three_args", "def solve():\n    return type('X', (object,), {})\n", "screen", "type-three-args"),
-    Case("type_subclasses", "def solve():\n    return type(0).mro()[-1].__subclasses__()\n", "screen", "'__subclasses__'"),
-    Case("lambda_default_arg", "solve = lambda f=open: f('TARGET', 'w')\n", "screen", "'open'"),
-    Case("lambda_globals", "solve = lambda g=(lambda: 0).__globals__: sorted(g)\n", "screen", "'__globals__'"),
-    Case("generator_frame", "def solve():\n    g = (i for i in [1])\n    return g.gi_frame.f_globals\n", "screen", "'gi_frame'"),
-    Case("format_attribute", "def solve():\n    return '{0.__class__}'.format(1)\n", "screen", "format"),
-    Case("format_built_string", "def solve():\n    d = '_' * 2\n    return ('{0.' + d + 'class' + d + '}').format(1)\n",
-         "screen", "format-string"),
-    Case("str_format_indirect", "def solve(f):\n    return str.format(f, 1)\n", "screen", "format-string"),
-    Case("match_class_dunder", "def solve():\n    match 1:\n        case object(__class__=c):\n            return 1\n",
-         "screen", "'__class__'"),
-    Case("attrgetter", "from operator import attrgetter\ndef solve():\n    return attrgetter('real')(1)\n", "screen", "'attrgetter'"),
-    Case("get_type_hints", "import typing\ndef solve():\n    return typing.get_type_hints(solve)\n", "screen", "get_type_hints"),
-    Case("private_attribute", "import collections\ndef solve():\n    return collections._sys\n", "screen", "private-attribute"),
-    Case("breakpoint", "def solve():\n    breakpoint()\n", "screen", "'breakpoint'"),
-    Case("relative_import", "from . import x\ndef solve():\n    return 1\n", "screen", "relative imports"),
-    Case("missing_entry", "def other():\n    return 1\n", "screen", "no top-level function 'solve'"),
-]
-
-
-@pytest.mark.parametrize("case", CORPUS, ids=[c.name for c in CORPUS])
+@pytest.mark.parametrize("case", ALL_CASES, ids=[c.name for c in ALL_CASES])
 def test_adversarial_corpus(sandbox: Sandbox, target: Path, case: Case) -> None:
-    result = sandbox.run(case.code.replace("TARGET", str(target)), case.args)
+    result = sandbox.run(fill(case.code, {"TARGET": target, **PLACES}), case.args)
     assert result.status == "error"
     assert result.error_kind == case.kind, result
     assert case.contains in result.message, result.message
@@ -139,7 +53,7 @@ def test_adversarial_corpus(sandbox: Sandbox, target: Path, case: Case) -> None:
 
 
 def test_corpus_is_large_enough() -> None:
-    assert len(CORPUS) >= 25
+    assert len(CORPUS) >= 25 and len(NEW_CORPUS) >= 15
 
 
 def test_exception_message_is_exact(sandbox: Sandbox) -> None:
@@ -180,7 +94,8 @@ def test_module_copies_are_fresh_and_filtered(sandbox: Sandbox) -> None:
     assert sandbox.run(code).value == [2.0, "Sized"]
 
 
-# --- third line of defence: full builtins, only the operating-system limits stand ---------------------
+# --- third line of defence: full builtins, only the operating-system layers stand ----------------------
+# (tests/test_sandbox_containment.py runs the whole corpus this way and checks the host for harm)
 
 needs_filter = pytest.mark.skipif(not syscall_filter()[0], reason=syscall_filter()[1])
 
@@ -197,18 +112,25 @@ def run_unscreened(sb: Sandbox, code: str, target: Path | None = None, limits: L
     [
         "def solve():\n    with open('TARGET', 'w') as fh:\n        fh.write('x')\n",
         "import os\ndef solve():\n    while True:\n        os.fork()\n",
-        "import subprocess\ndef solve():\n    subprocess.run(['touch', 'TARGET'])\n",
-        "import threading\ndef solve():\n    threading.Thread(target=lambda: None).start()\n",
         "import os\ndef solve():\n    os.mkdir('TARGET')\n",
         "import os, signal\ndef solve():\n    os.kill(os.getppid(), signal.SIGKILL)\n",
+        "import os\ndef solve():\n    return os.open('/etc/hostname', os.O_RDONLY)\n",
+        "import _thread\ndef solve():\n    _thread.start_new_thread(print, ('x',))\n",
     ],
-    ids=["file_write", "fork_bomb", "subprocess", "thread", "mkdir", "kill_parent"],
+    ids=["file_write", "fork_bomb", "mkdir", "kill_parent", "read_open", "thread"],
 )
 def test_os_layer_denies_with_permission_errors(sandbox: Sandbox, target: Path, code: str) -> None:
     result = run_unscreened(sandbox, code, target)
     assert result.error_kind == "exception", result
-    assert "PermissionError" in result.message or "can't start new thread" in result.message
+    assert "PermissionError" in result.message or "can't start new thread" in result.message, result.message
     assert_host_unharmed(sandbox, target)
+
+
+@needs_filter
+def test_modules_not_loaded_in_the_worker_cannot_be_imported(sandbox: Sandbox) -> None:
+    """Importing reads files; the child has no file access, so only modules the worker preloaded exist."""
+    result = run_unscreened(sandbox, "import sqlite3\ndef solve():\n    return 1\n")
+    assert result.error_kind == "exception" and "ModuleNotFoundError" in result.message, result
 
 
 @needs_filter
@@ -240,41 +162,38 @@ def test_existing_host_file_cannot_be_removed(sandbox: Sandbox, tmp_path: Path) 
     assert victim.read_text() == "data"
 
 
-@needs_filter
-def test_socket_to_loopback_is_blocked(sandbox: Sandbox) -> None:
-    with socket.socket() as server:
-        server.bind(("127.0.0.1", 0))
-        server.listen(1)
-        server.settimeout(0.2)
-        port = server.getsockname()[1]
-        code = f"import socket\ndef solve():\n    socket.create_connection(('127.0.0.1', {port}), timeout=1)\n"
-        result = run_unscreened(sandbox, code)
-        assert result.error_kind == "exception", result
-        with pytest.raises(socket.timeout):
-            server.accept()
-
-
-def test_network_namespace_has_no_interfaces_but_loopback(sandbox: Sandbox) -> None:
+def test_network_namespace_is_not_the_hosts(sandbox: Sandbox) -> None:
     available, reason = network_isolation()
     assert isinstance(reason, str) and reason
     if not available:
         pytest.skip(reason)
-    result = run_unscreened(sandbox, "def solve():\n    return open('/proc/self/net/dev').read()\n")
-    interfaces = [line.split(":")[0].strip() for line in result.value.splitlines()[2:]]
-    assert interfaces == ["lo"]
+    worker = sandbox.worker_pid()
+    assert os.readlink(f"/proc/{worker}/ns/net") != os.readlink("/proc/self/ns/net")
 
 
-def test_os_layer_does_not_block_reads(sandbox: Sandbox) -> None:
-    """Honest caveat: below the screen and builtins, reading host files is still possible."""
-    result = run_unscreened(sandbox, "def solve():\n    return open('/etc/passwd').read()[:4]\n")
-    assert result.ok
+def test_os_layer_blocks_reads_of_host_files(sandbox: Sandbox) -> None:
+    """Below the screen and the builtins, host files cannot be read either (no file access at all)."""
+    result = run_unscreened(sandbox, "def solve():\n    return open('/etc/hostname').read()\n")
+    assert result.error_kind == "exception" and "PermissionError" in result.message, result
+
+
+def test_the_child_holds_only_the_null_device_and_its_result_pipe(sandbox: Sandbox) -> None:
+    """What the allow-list leaves open (read, write, lseek on held descriptors) reaches nothing else."""
+    code = ("import errno, os\ndef solve():\n    held = []\n    for fd in range(256):\n        try:\n"
+            "            os.lseek(fd, 0, os.SEEK_CUR)\n            held.append([fd, 'seekable'])\n"
+            "        except OSError as exc:\n            if exc.errno != errno.EBADF:\n"
+            "                held.append([fd, errno.errorcode[exc.errno]])\n    return held\n")
+    held = run_unscreened(sandbox, code).value
+    assert held[:3] == [[0, "seekable"], [1, "seekable"], [2, "seekable"]] and len(held) == 4, held
+    assert held[3][1] == "ESPIPE", held  # the result pipe
 
 
 def test_working_folder_is_empty_and_environment_cleared(sandbox: Sandbox) -> None:
-    result = run_unscreened(sandbox, "import os\ndef solve():\n    return [os.getcwd(), os.listdir('.'), sorted(os.environ)]\n")
-    cwd, listing, env = result.value
-    assert "jigwright-sandbox-" in cwd and listing == []
-    assert set(env) <= {"LC_CTYPE"}
+    worker = sandbox.worker_pid()
+    folder = os.readlink(f"/proc/{worker}/cwd")
+    assert "jigwright-sandbox-" in folder and os.listdir(folder) == []
+    result = run_unscreened(sandbox, "import os\ndef solve():\n    return sorted(os.environ)\n")
+    assert set(result.value) <= {"LC_CTYPE"}
 
 
 def test_crash_segfault_and_exit(sandbox: Sandbox) -> None:
@@ -467,3 +386,88 @@ def test_date_parsing_and_formatting_that_import_lazily_from_c_work():
         assert sb.run(code, {"day": "2026-12-01"}).value == ["Tuesday", 2]
         res = sb.run("import time\n\ndef solve():\n    return time.time()\n", {})
         assert res.error_kind == "screen" and "time" in res.message
+
+
+def test_every_demo_familys_hand_made_tool_runs_under_every_layer(sandbox: Sandbox) -> None:
+    """Tools that behave still work with no file access: each demo family's hand-written tool (bench/handmade.py)
+    gives the answer of the family's reference solver (samples/families) on every solved example."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
+    from handmade import ARGS, handmade_tool, solved_examples
+    from samples.families import FAMILIES
+
+    for family in FAMILIES:
+        tool = handmade_tool(family)
+        for example in solved_examples(family):
+            result = sandbox.run(tool.code, ARGS[family](example["params"], example["question"]))
+            assert result.ok and str(result.value) == str(example["answer"]), (family, result)
+
+
+LIBRARY_TOUR = '''
+import calendar
+import collections
+import dataclasses
+import decimal
+import enum
+import fractions
+import json
+import re
+import statistics
+import string
+import typing
+from datetime import date, datetime, timedelta
+
+
+class Tide(enum.Enum):
+    LOW = 1
+    HIGH = 2
+
+
+@dataclasses.dataclass(frozen=True)
+class Berth:
+    number: int
+    boat: str
+
+
+class Slot(typing.NamedTuple):
+    start: int
+    end: int
+
+
+def solve(when, amounts):
+    parsed = datetime.strptime(when, "%d %B %Y %I:%M %p")
+    money = [decimal.Decimal(a).quantize(decimal.Decimal("0.01"), rounding=decimal.ROUND_HALF_EVEN) for a in amounts]
+    return {
+        "parsed": parsed.isoformat(),
+        "formatted": parsed.strftime("%A %d %b %Y, %H:%M"),
+        "month": [calendar.month_name[parsed.month], calendar.monthrange(parsed.year, parsed.month)[1]],
+        "codecs": [b.hex() for b in ("Kelpwick".encode("utf-16-le"), "Quay".encode("latin-1"),
+                                     "kelpwick-quay.example".encode("idna"), "Pier".encode("cp1252"))],
+        "decoded": b"\\\\u00e9t\\\\u00e9".decode("unicode_escape"),
+        "money": [str(m) for m in money] + [str(sum(money))],
+        "fraction": str(fractions.Fraction(3, 8) + fractions.Fraction("0.125")),
+        "stats": [statistics.median([3, 1, 2, 8]), round(statistics.stdev([2, 4, 4, 4, 5, 5, 7, 9]), 6)],
+        "regex": re.findall(r"[A-Z]{4}\\d{7}", "boxes KQCU1234565 and KQCU7654321"),
+        "json": json.loads(json.dumps({"b": [1, 2.5, None]}, sort_keys=True)),
+        "counter": collections.Counter("harbour").most_common(2),
+        "template": string.Template("$boat at berth $n").substitute(boat="Tern", n=4),
+        "enum": [Tide.HIGH.name, Tide(1).name],
+        "records": [dataclasses.asdict(Berth(4, "Tern")), list(Slot(1, 5))],
+        "dates": [(date(2026, 12, 25) - date(2026, 12, 1)).days, (date(2026, 3, 1) - timedelta(days=1)).isoformat()],
+        "grouped": f"{1234567:,}",
+    }
+'''
+
+
+def test_library_paths_a_tool_may_take_work_without_files(sandbox: Sandbox) -> None:
+    """Standard-library paths that import or read lazily (strptime, codecs, decimal contexts...) work in the
+    child, which may open no file; the reference is the same code run by the host's own CPython."""
+    args = {"when": "07 March 2026 04:30 PM", "amounts": ["12.345", "0.125", "7"]}
+    assert screen(LIBRARY_TOUR, entry="solve") == []
+    result = sandbox.run(LIBRARY_TOUR, args)
+    assert result.ok, result
+    namespace: dict = {}
+    exec(compile(LIBRARY_TOUR, "<reference>", "exec"), namespace)
+    expected = json.loads(json.dumps(namespace["solve"](**args)))
+    assert result.value == expected

@@ -91,6 +91,7 @@ def test_checkup_models_list_and_version_run_from_outside_the_checkout(installed
     jw = str(installed / "jigwright")
     checkup = run([jw, "checkup"], cwd=outside, env=env)
     assert "model coder-1.5b:" in checkup and "model coder-0.5b:" in checkup
+    assert "syscall filter: compiled by libseccomp" in checkup  # the worker ships in the wheel and pyseccomp installs
     listing = run([jw, "models", "list"], cwd=outside, env=env)
     assert "coder-1.5b" in listing and "builder*" in listing and "executor*" in listing
     assert run([jw, "--version"], cwd=outside, env=env).startswith(f"jigwright {__version__} (llama-cpp-python ")
