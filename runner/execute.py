@@ -54,14 +54,18 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
     return None
 
 
-# How the executor fills arguments (part of the eval's result key): first without a grammar, and only when that
-# reply is not JSON fitting the schema, again under the schema's grammar; once a tool's free reply has missed,
-# that tool's later fills in this process go straight to the grammar. Measured with bench/fill_bench.py (one
-# thread, 8 fills each): departures gave the same replies free, 3.5 CPU s per fill against 4.8 s under the
-# grammar (grammar-constrained sampling over the 151k-token vocabulary is the difference); manifest_order's
-# free replies fit the schema in 4 of 8 (labels left unquoted), so paying for both calls every time (2.3 + half
-# of 3.6 s) would cost more than the grammar alone.
-FILL_METHOD = "free-then-schema, schema after a miss"
+# How the executor fills arguments (part of the eval's result key). A greedy fill (the first attempt) whose schema
+# the forced path handles is one pass of `LocalModel.chat_forced`: the spans the schema forces (keys, quotes,
+# separators, closing brackets) are appended in batches and the model picks only the values and the open
+# choices, the best token that fits. Its reply is the free greedy reply when that fits the schema and the
+# grammar's reply otherwise (bench/forced_fill_bench.py compares them on the families' test tasks).
+# Otherwise (a retry at a temperature, a model or schema the forced path does not handle) the fill is asked
+# free, checked with jsonschema, and asked again under the schema's grammar only when it does not fit; a tool
+# whose free fill has missed once goes straight to the grammar for the rest of the process. Measured with
+# bench/fill_bench.py (one thread, 8 fills each): departures gave the same replies free, 3.5 CPU s per fill
+# against 4.8 s under the grammar (grammar-constrained sampling over the 151k-token vocabulary is the
+# difference); manifest_order's free replies fit the schema in 4 of 8 (labels left unquoted).
+FILL_METHOD = "forced spans when greedy; else free-then-schema, schema after a miss"
 _FREE_MISSED: set[str] = set()  # schemas whose free fill has missed once in this process
 
 
@@ -79,12 +83,19 @@ def _parse_fill(card: Card, text: str, finish_reason: str) -> tuple[dict[str, An
     return (None, problem) if problem else (args, None)
 
 
-def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int,
-                   temperature: float = 0.0) -> Filled:
-    """Ask the executor for the argument object of `question`; if the free reply does not fit the card's
+def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, temperature: float = 0.0,
+                   forced: bool = True) -> Filled:
+    """Ask the executor for the argument object of `question`. Greedy fills go through the model's forced path
+    when it has one (`chat_forced`) and `forced` is on; otherwise, if the free reply does not fit the card's
     schema, ask again constrained by the schema (the cost of both calls is counted), and from then on ask this
     tool's fills under the schema straight away."""
     messages = fill_messages(card, question)
+    chat_forced = getattr(model, "chat_forced", None)
+    if forced and temperature == 0.0 and chat_forced is not None:
+        reply = chat_forced(messages, schema=card.schema_, max_tokens=token_budget(card))
+        if reply is not None:
+            args, error = _parse_fill(card, reply.text, reply.finish_reason)
+            return Filled(arguments=args, error=error, usage=reply.usage, raw=reply.text)
     usage = Usage()
     schema_key = json.dumps(card.schema_, sort_keys=True)
     if schema_key not in _FREE_MISSED:

@@ -61,6 +61,8 @@ class LocalModel:
         self.load_usage: Usage | None = None
         self._llm: Any = None
         self._grammars: dict[str, Any] = {}
+        self._formatter: Any = None
+        self._vocab: Any = None
         self._lock = threading.Lock()
 
     @property
@@ -122,6 +124,50 @@ class LocalModel:
             usage=Usage(prompt_tokens=u["prompt_tokens"], completion_tokens=u["completion_tokens"],
                         cached_tokens=cached, wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds),
         )
+
+
+    def _chat_tokens(self, messages: list[Message]) -> list[int] | None:
+        """The prompt tokens `create_chat_completion` evaluates for `messages` (the model's own chat template from
+        its GGUF header, rendered and tokenised the same way), or None for a model without one."""
+        llm = self._llm
+        if llm.chat_handler is not None or llm.chat_format != "chat_template.default":
+            return None
+        if self._formatter is None:
+            from llama_cpp.llama_chat_format import Jinja2ChatFormatter
+
+            def text(tok: int) -> str:
+                return llm._model.token_get_text(tok) if tok != -1 else ""
+
+            self._formatter = Jinja2ChatFormatter(template=llm.metadata["tokenizer.chat_template"],
+                                                  eos_token=text(llm.token_eos()), bos_token=text(llm.token_bos()),
+                                                  stop_token_ids=[llm.token_eos()])
+        result = self._formatter(messages=messages)
+        return llm.tokenize(result.prompt.encode("utf-8"), add_bos=not result.added_special, special=True)
+
+    def chat_forced(self, messages: list[Message], *, schema: dict, max_tokens: int) -> Reply | None:
+        """The greedy reply that fits `schema`, with the spans the schema forces appended in batches
+        (`guided.decode`): the free greedy reply when that fits, else the grammar's. None when this model or
+        schema is not one the forced path handles (the caller then uses `chat`)."""
+        from . import forced, guided
+
+        if not forced.supported(schema):
+            return None
+        self.load()
+        with self._lock:
+            prompt = self._chat_tokens(messages)
+            if prompt is None:
+                return None
+            if self._vocab is None:
+                self._vocab = guided.Vocab(self._llm)
+            with Stopwatch() as sw:
+                try:
+                    out = guided.decode(self._llm, prompt, schema, max_tokens, self._vocab)
+                except (ValueError, RuntimeError) as exc:
+                    raise ModelRuntimeError(f"model '{self.name}' failed: {exc}") from exc
+        return Reply(text=out.text, finish_reason=out.finish_reason,
+                     usage=Usage(prompt_tokens=len(prompt), completion_tokens=len(out.tokens),
+                                 forced_tokens=out.forced, cached_tokens=out.cached, wall_seconds=sw.wall_seconds,
+                                 cpu_seconds=sw.cpu_seconds))
 
 
 _OPEN: dict[str, LocalModel] = {}

@@ -28,6 +28,7 @@ class Usage(BaseModel):
     prompt_tokens: int = 0
     completion_tokens: int = 0
     cached_tokens: int = 0
+    forced_tokens: int = 0  # reply tokens the schema forced, appended in batches (part of completion_tokens)
     wall_seconds: float = 0.0
     cpu_seconds: float = 0.0
 
@@ -36,6 +37,7 @@ class Usage(BaseModel):
             prompt_tokens=self.prompt_tokens + other.prompt_tokens,
             completion_tokens=self.completion_tokens + other.completion_tokens,
             cached_tokens=self.cached_tokens + other.cached_tokens,
+            forced_tokens=self.forced_tokens + other.forced_tokens,
             wall_seconds=self.wall_seconds + other.wall_seconds,
             cpu_seconds=self.cpu_seconds + other.cpu_seconds,
         )
