@@ -300,6 +300,23 @@ class Cursor:
             assert nxt is not None
             stack = nxt
 
+    def choice(self) -> tuple[str, Any]:
+        """What the open choice at this point is about: ("string", pattern steps or None) inside a string,
+        ("number", integer?) at or in a number, ("array", item schema) at a list's next item or its end,
+        ("other", None) otherwise (a boolean, or the reply is complete)."""
+        if not self.stack:
+            return "other", None
+        top = self.stack[-1]
+        if top[0] == "str":
+            return "string", top[1]
+        if top[0] == "num":
+            return "number", top[1]
+        if top[0] == "val" and top[1]["type"] in ("integer", "number"):
+            return "number", top[1]["type"] == "integer"
+        if top[0] == "arr":
+            return "array", top[1]
+        return "other", None
+
     def in_string(self) -> bool:
         """Inside a string's characters (where any text may come, so multi-byte characters are possible)."""
         return bool(self.stack) and self.stack[-1][0] == "str"

@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from .draft import Drafter
 from .forced import Cursor, continuations
 
 
@@ -160,8 +161,83 @@ def _truncate(llm: Any, n: int) -> None:
     llm.n_tokens = n
 
 
+@dataclass
+class _Step:
+    tokens: list[int]
+    accepted: int
+    batches: int
+    overruled: int
+    cursor: Cursor
+    pending: bytes
+    deferred: list[int]
+    nothing_fits: bool = False
+
+
+def _sure_positions(vocab: Vocab, cursor: Cursor, pending: bytes, draft: list[int]) -> set[int]:
+    """Positions of the draft whose token every fitting continuation of the tokens before it must have (the
+    stable tokens of a forced span), so they need no check, assuming the draft holds up to there."""
+    sure: set[int] = set()
+    c, pend, j = cursor, pending, 0
+    while j < len(draft):
+        span = c.forced()
+        stable = vocab.span_tokens(span, c.feed(span)) if span else []
+        if stable and draft[j: j + len(stable)] == stable:
+            sure.update(range(j, j + len(stable)))
+            n = len(stable)
+        else:
+            n = 1
+        step = _feed_tokens(c, pend, draft[j: j + n], vocab)
+        if step is None:
+            break
+        c, pend = step
+        j += n
+    return sure
+
+
+def _verify_draft(llm: Any, vocab: Vocab, cursor: Cursor, pending: bytes, deferred: list[int], draft: list[int],
+                  logits: Any, check_all: bool) -> _Step:
+    """Evaluate the deferred tokens and a draft in one batch and keep the draft's tokens up to the first that
+    is not the model's own best fitting choice, which replaces it. Tokens of forced spans that every
+    continuation shares are kept unchecked (no logits are computed for them)."""
+    sure = set() if check_all else _sure_positions(vocab, cursor, pending, draft)
+    c, pend = cursor, pending
+    out: list[int] = []
+    if not deferred and 0 not in sure:  # the first drafted token is checked against the logits at hand
+        choice = _pick(logits(-1), cursor, pending, vocab)
+        if choice is None:
+            return _Step([], 0, 0, 0, cursor, pending, [], nothing_fits=True)
+        tok, c1, p1 = choice
+        if tok != draft[0]:
+            return _Step([tok], 0, 0, 1, c1, p1, [tok])
+        sure.add(0)
+    whole = _feed_tokens(cursor, pending, draft, vocab)
+    ends = whole is not None and whole[0].done
+    if ends and len(sure) == len(draft):
+        return _Step(list(draft), len(draft), 0, 0, whole[0], whole[1], [])
+    d = len(deferred)
+    batch = deferred + (draft[:-1] if ends else draft)
+    start = llm.n_tokens
+    _eval_batch(llm, batch, [d + j - 1 for j in range(len(draft)) if j not in sure])
+    for j, t in enumerate(draft):
+        if j in sure:
+            step = _advance(c, pend, vocab.piece(t))
+            assert step is not None
+            c, pend = step
+            out.append(t)
+            continue
+        choice = _pick(logits(d + j - 1), c, pend, vocab)
+        if choice is None:
+            return _Step(out, len(out), 1, 0, c, pend, [], nothing_fits=True)
+        tok, c, pend = choice
+        out.append(tok)
+        if tok != t:  # the model writes this place otherwise: keep its token, drop the rest
+            _truncate(llm, start + d + j)
+            return _Step(out, len(out) - 1, 1, 1, c, pend, [tok])
+    return _Step(out, len(out), 1, 0, c, pend, [])
+
+
 def decode(llm: Any, prompt: list[int], schema: dict[str, Any], max_tokens: int,
-           vocab: Vocab | None = None, check_all: bool = False) -> Decoded:
+           vocab: Vocab | None = None, check_all: bool = False, drafter: Drafter | None = None) -> Decoded:
     """Greedy reply to `prompt` (token ids of the chat so far) that fits `schema`, at most `max_tokens` tokens.
 
     A forced span's tokens that every continuation shares are appended unchecked; its last tokens, which may
@@ -189,6 +265,21 @@ def decode(llm: Any, prompt: list[int], schema: dict[str, Any], max_tokens: int,
         if room <= 0:
             finish = "length"
             break
+        if drafter is not None:
+            reply = b"".join(vocab.piece(t) for t in tokens).decode("utf-8", errors="ignore")
+            guess = drafter.draft(cursor, reply)
+            if guess:
+                step = _verify_draft(llm, vocab, cursor, pending, deferred, vocab.tokenize(guess)[:room], logits,
+                                     check_all)
+                tokens.extend(step.tokens)
+                forced += step.accepted
+                batches += step.batches
+                overruled += step.overruled
+                cursor, pending, deferred = step.cursor, step.pending, step.deferred
+                if step.nothing_fits:
+                    finish = "nothing fits"
+                    break
+                continue
         span = cursor.forced()
         sure: list[int] = []
         unsure: list[int] = []

@@ -144,11 +144,13 @@ class LocalModel:
         result = self._formatter(messages=messages)
         return llm.tokenize(result.prompt.encode("utf-8"), add_bos=not result.added_special, special=True)
 
-    def chat_forced(self, messages: list[Message], *, schema: dict, max_tokens: int) -> Reply | None:
+    def chat_forced(self, messages: list[Message], *, schema: dict, max_tokens: int,
+                    draft: bool = True) -> Reply | None:
         """The greedy reply that fits `schema`, with the spans the schema forces appended in batches
         (`guided.decode`): the free greedy reply when that fits, else the grammar's. None when this model or
         schema is not one the forced path handles (the caller then uses `chat`)."""
         from . import forced, guided
+        from .draft import Drafter
 
         if not forced.supported(schema):
             return None
@@ -161,7 +163,8 @@ class LocalModel:
                 self._vocab = guided.Vocab(self._llm)
             with Stopwatch() as sw:
                 try:
-                    out = guided.decode(self._llm, prompt, schema, max_tokens, self._vocab)
+                    drafter = Drafter.for_chat(messages) if draft else None
+                    out = guided.decode(self._llm, prompt, schema, max_tokens, self._vocab, drafter=drafter)
                 except (ValueError, RuntimeError) as exc:
                     raise ModelRuntimeError(f"model '{self.name}' failed: {exc}") from exc
         return Reply(text=out.text, finish_reason=out.finish_reason,
