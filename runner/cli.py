@@ -451,6 +451,7 @@ def _report_table(report) -> Table:
 def _print_report(report, console: Console) -> None:
     console.print(_report_table(report))
     sv = report.savings
+    st = report.cpu_by_step
     console.print(
         f"queue {report.queue} → answers {report.out}\n"
         f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
@@ -458,6 +459,9 @@ def _print_report(report, console: Console) -> None:
         + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +
         f"CPU {report.total_cpu_seconds:.1f} s in all: {report.task_cpu_seconds:.1f} s in tasks, "
         f"{report.model_load_cpu_seconds:.1f} s loading models\n"
+        f"CPU s per task by step: routing {st.routing:.2f}, filling {st.filling:.2f}, tool {st.tool:.3f}, "
+        f"fallback {st.fallback:.2f}\n"
+        f"generated tokens {report.tokens.completion}, {report.tokens.forced} of them forced by the schema\n"
         f"wall {report.wall_seconds:.1f} s, {report.tasks_per_minute:.1f} tasks/min\n"
         f"prompt cache: {sv.cached_tokens} of {sv.prompt_tokens} prompt tokens reused ({sv.cached_share:.0%}),\n"
         f"  about {sv.cpu_seconds_saved:.1f} CPU s saved at {sv.cpu_per_prompt_token * 1000:.1f} ms/token "
@@ -569,7 +573,8 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
         print_cut(out, "model's reply: " + " ".join(rec.reply.split()))
     if rec.error:
         out.print(f"[yellow]note:[/yellow] {escape(rec.error)}", highlight=False, soft_wrap=True)
-    out.print(f"cost: {rec.cpu.model:.2f} CPU s model + {rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
+    out.print(f"cost: {rec.cpu.model:.2f} CPU s model (routing {rec.cpu.route:.2f}, filling {rec.cpu.fill:.2f}) + "
+              f"{rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
               f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
               highlight=False, soft_wrap=True)
 
@@ -655,6 +660,14 @@ def eval_tables(report) -> list:
                 cells.append("" if v is None else f"{v} tasks" if isinstance(v, int) else str(v))
             b.add_row(r.family, fmt(r.build_cpu), *cells)
         tables.append(b)
+    steps = evaluate.step_rows(report)
+    if steps:
+        st = screen_table("The split's CPU s per task by step (no routing: tasks go straight to their tool)")
+        for c in evaluate.STEP_COLUMNS:
+            st.add_column(c, justify="left" if c == "family" else "right", no_wrap=c == "family")
+        for row in steps:
+            st.add_row(*row)
+        tables.append(st)
     return tables
 
 

@@ -192,6 +192,7 @@ class TaskResult(BaseModel):
     prompt_tokens: int = 0
     completion_tokens: int = 0
     cached_tokens: int = 0
+    forced_tokens: int = 0  # of the completion tokens, those the schema forced (appended in batches)
 
     @property
     def cpu_seconds(self) -> float:
@@ -236,6 +237,10 @@ class MethodRow(BaseModel):
     ci_high: float
     cpu_mean: float
     cpu_p95: float
+    cpu_model_mean: float = 0.0  # the split: filling the arguments (tasks go straight to the tool: no routing)
+    cpu_tool_mean: float = 0.0
+    generated_mean: float = 0.0
+    forced_mean: float = 0.0
     tokens_mean: float
     cached_tokens_mean: float
     unanswered: int
@@ -361,7 +366,8 @@ def answer_split(executor: ChatModel, tool: Tool, task: EvalTask, sandbox: Any, 
     return TaskResult(id=task.id, answer=out.value if out.ok else None, answered=out.ok, error=out.error,
                       arguments=out.arguments, model_cpu=u.cpu_seconds, tool_cpu=out.tool_cpu_seconds,
                       wall_seconds=u.wall_seconds + out.tool_wall_seconds, prompt_tokens=u.prompt_tokens,
-                      completion_tokens=u.completion_tokens, cached_tokens=u.cached_tokens)
+                      completion_tokens=u.completion_tokens, cached_tokens=u.cached_tokens,
+                      forced_tokens=u.forced_tokens)
 
 
 def _sha(obj: Any) -> str:
@@ -582,6 +588,10 @@ def make_row(family: str, method: str, model: str, scored: list[ScoredTask], com
     return MethodRow(family=family, method=method, model=model, tasks=n, correct=k,
                      accuracy=round(k / n, 4) if n else 0.0, ci_low=round(lo, 4), ci_high=round(hi, 4),
                      cpu_mean=round(sum(cpus) / len(cpus), 4), cpu_p95=round(quantile(cpus, 0.95), 4),
+                     cpu_model_mean=round(sum(s.model_cpu for s in scored) / n, 4) if n else 0.0,
+                     cpu_tool_mean=round(sum(s.tool_cpu for s in scored) / n, 4) if n else 0.0,
+                     generated_mean=round(sum(s.completion_tokens for s in scored) / n, 1) if n else 0.0,
+                     forced_mean=round(sum(s.forced_tokens for s in scored) / n, 1) if n else 0.0,
                      tokens_mean=round(sum(s.tokens for s in scored) / n, 1) if n else 0.0,
                      cached_tokens_mean=round(sum(s.cached_tokens for s in scored) / n, 1) if n else 0.0,
                      unanswered=sum(not s.answered for s in scored), computed=computed, results=scored)
@@ -706,6 +716,16 @@ def table_rows(report: EvalReport) -> list[list[str]]:
     return out
 
 
+STEP_COLUMNS = ["family", "routing", "filling", "tool", "generated tokens", "of them forced"]
+
+
+def step_rows(report: EvalReport) -> list[list[str]]:
+    """The split's CPU per task by step (pure). Routing is not part of the eval (tasks go straight to their
+    family's tool); the run report of `jigwright answer` measures it."""
+    return [[r.family, "not measured", f"{r.cpu_model_mean:.3g}", f"{r.cpu_tool_mean:.3g}", f"{r.generated_mean:.1f}",
+             f"{r.forced_mean:.1f}"] for r in report.rows if r.method == "split"]
+
+
 def markdown(report: EvalReport) -> str:
     """The table as Markdown with date, machine and how it was measured, ready to paste into the README."""
     m = report.machine
@@ -723,6 +743,11 @@ def markdown(report: EvalReport) -> str:
         "|" + "|".join("---" if i < 3 or c == "note" else "---:" for i, c in enumerate(cols)) + "|",
     ]
     lines += ["| " + " | ".join(esc(c) for c in row) + " |" for row in table_rows(report)]
+    steps = step_rows(report)
+    if steps:
+        lines += ["", "CPU s per task of the split by step, and the executor's generated tokens per task:", "",
+                  "| " + " | ".join(STEP_COLUMNS) + " |", "|---|" + "---:|" * (len(STEP_COLUMNS) - 1)]
+        lines += ["| " + " | ".join(esc(c) for c in row) + " |" for row in steps]
     lines += [
         "",
         "- *split*: the tool that `jigwright build` makes from examples.jsonl, its arguments filled by the executor "

@@ -29,10 +29,14 @@ class Task(BaseModel):
 
 
 class Cpu(BaseModel):
-    """CPU seconds of one task: model calls (this process, all threads) and tool runs (sandbox workers)."""
+    """CPU seconds of one task: model calls (this process, all threads) and tool runs (sandbox workers). Of the
+    model's seconds, `route` went to routing and `fill` to filling the tool's arguments; the rest (model minus
+    both) to the fallback's direct answer."""
 
     model: float = 0.0
     tool: float = 0.0
+    route: float = 0.0
+    fill: float = 0.0
 
     @property
     def total(self) -> float:
@@ -43,6 +47,7 @@ class Tokens(BaseModel):
     prompt: int = 0
     completion: int = 0
     cached: int = 0
+    forced: int = 0  # of the completion tokens, those the schema forced, appended in batches
 
 
 class AnswerRecord(BaseModel):

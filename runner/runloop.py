@@ -105,6 +105,8 @@ class _Work:
     task: Task
     route: Route | None = None
     usage: Usage = field(default_factory=Usage)
+    route_cpu: float = 0.0
+    fill_cpu: float = 0.0
     tool_cpu: float = 0.0
     tool_wall: float = 0.0
     attempts: int = 0
@@ -119,9 +121,11 @@ class _Work:
             id=self.task.id, line=self.task.line, question=self.task.question, answer=answer, reply=reply,
             route=r.tool if r else NONE_ROUTE, confidence=r.confidence if r else None, arguments=self.arguments,
             status=status, tool_backed=tool_backed, error=self.error, attempts=self.attempts,
-            cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4)),
+            cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4), route=round(self.route_cpu, 4),
+                    fill=round(self.fill_cpu, 4)),
             wall_seconds=round(u.wall_seconds + self.tool_wall, 4),
-            tokens=Tokens(prompt=u.prompt_tokens, completion=u.completion_tokens, cached=u.cached_tokens))
+            tokens=Tokens(prompt=u.prompt_tokens, completion=u.completion_tokens, cached=u.cached_tokens,
+                          forced=u.forced_tokens))
 
 
 class Engine:
@@ -151,6 +155,7 @@ class Engine:
         work.route = route(self.executor, self.cards, work.task.question, seed=self.options.seed,
                            min_confidence=self.options.min_confidence)
         work.usage = work.usage + work.route.usage
+        work.route_cpu += work.route.usage.cpu_seconds
         if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
             work.error = work.route.note
 
@@ -163,6 +168,7 @@ class Engine:
         out = answer_with_tool(self.executor, tool, work.task.question, self.sandbox, seed=self.options.seed,
                                retries=self.options.retries, retry_temperature=self.options.retry_temperature)
         work.usage = work.usage + out.usage
+        work.fill_cpu += out.usage.cpu_seconds
         work.tool_cpu += out.tool_cpu_seconds
         work.tool_wall += out.tool_wall_seconds
         work.attempts = out.attempts
@@ -220,6 +226,24 @@ class CpuStats(BaseModel):
     p95: float
 
 
+class CpuSteps(BaseModel):
+    """Mean CPU seconds per answered task spent routing, filling the tool's arguments, running the tool, and
+    answering directly after a fallback (each over all answered tasks, so they add up to the mean)."""
+
+    routing: float
+    filling: float
+    tool: float
+    fallback: float
+
+
+def cpu_steps(records: list[AnswerRecord]) -> CpuSteps:
+    n = max(len(records), 1)
+    return CpuSteps(routing=round(sum(r.cpu.route for r in records) / n, 4),
+                    filling=round(sum(r.cpu.fill for r in records) / n, 4),
+                    tool=round(sum(r.cpu.tool for r in records) / n, 4),
+                    fallback=round(sum(max(r.cpu.model - r.cpu.route - r.cpu.fill, 0.0) for r in records) / n, 4))
+
+
 class CacheSavings(BaseModel):
     """Prompt tokens llama.cpp reused from its KV cache instead of evaluating again, and what that saved.
     In queue order (route, fill, route, fill, …) consecutive prompts share almost nothing, so nearly all
@@ -243,6 +267,8 @@ class RunReport(BaseModel):
     failed: int
     errors: int
     cpu_per_task: dict[str, CpuStats] = Field(description="by route; 'all' covers every answered task")
+    cpu_by_step: CpuSteps = Field(default_factory=lambda: CpuSteps(routing=0, filling=0, tool=0, fallback=0),
+                                  description="mean CPU s per answered task by step")
     task_cpu_seconds: float
     model_load_cpu_seconds: float
     total_cpu_seconds: float
@@ -299,7 +325,7 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
     if answered:
         stats["all"] = cpu_stats([r.cpu.total for r in answered])
     tokens = Tokens(prompt=sum(r.tokens.prompt for r in records), completion=sum(r.tokens.completion for r in records),
-                    cached=sum(r.tokens.cached for r in records))
+                    cached=sum(r.tokens.cached for r in records), forced=sum(r.tokens.forced for r in records))
     rate, source = prompt_cpu_per_token(records)
     tool_cpu = sum(r.cpu.tool for r in records)
     total_cpu = process_cpu_seconds + tool_cpu
@@ -307,7 +333,7 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
         queue=queue, out=out, tasks=len(records), skipped=skipped,
         by_tool=sum(r.status == "tool" for r in records), by_fallback=sum(r.status == "fallback" for r in records),
         failed=sum(r.status == "failed" for r in records), errors=sum(r.status == "error" for r in records),
-        cpu_per_task=stats, task_cpu_seconds=round(sum(r.cpu.total for r in records), 3),
+        cpu_per_task=stats, cpu_by_step=cpu_steps(answered), task_cpu_seconds=round(sum(r.cpu.total for r in records), 3),
         model_load_cpu_seconds=round(load_cpu_seconds, 3), total_cpu_seconds=round(total_cpu, 3),
         wall_seconds=round(wall_seconds, 3),
         tasks_per_minute=round(len(answered) / (wall_seconds / 60), 2) if wall_seconds > 0 else 0.0,
