@@ -56,9 +56,10 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 
 # How the executor fills arguments (part of the eval's result key). A greedy fill (the first attempt) whose schema
 # the forced path handles is one pass of `LocalModel.chat_forced`: the spans the schema forces (keys, quotes,
-# separators, closing brackets) are appended in batches and the model picks only the values and the open
-# choices, the best token that fits. Its reply is the free greedy reply when that fits the schema and the
-# grammar's reply otherwise (bench/forced_fill_bench.py compares them on the families' test tasks).
+# separators, closing brackets) and a draft of the values guessed from the question are evaluated in batches,
+# and at every guessed place the model's own best fitting token is kept. Its reply is the free greedy reply
+# when that fits the schema and the grammar's reply otherwise (bench/forced_fill_bench.py compares them on the
+# families' test tasks; bench/split_cost.py measures the CPU per task against builder-direct).
 # Otherwise (a retry at a temperature, a model or schema the forced path does not handle) the fill is asked
 # free, checked with jsonschema, and asked again under the schema's grammar only when it does not fit; a tool
 # whose free fill has missed once goes straight to the grammar for the rest of the process. Measured with
