@@ -44,7 +44,8 @@ def split_way(executor, tool, tasks, warm_up, sandbox, forced: bool) -> list[dic
         out = []
         for t in tasks:
             r = evaluate.answer_split(executor, tool, t, sandbox, RunOptions(fallback="none"))
-            out.append({"right": r.answered and answers_match(t.answer, r.answer), "fill": r.model_cpu,
+            out.append({"arguments": r.arguments, "right": r.answered and answers_match(t.answer, r.answer),
+                        "fill": r.model_cpu,
                         "tool": r.tool_cpu, "generated": r.completion_tokens, "forced": r.forced_tokens})
         return out
     finally:
@@ -84,8 +85,11 @@ def main() -> None:
                 tool = store.get(name.replace("_", "-"))
             ex = fam.family.examples[0]
             warm_up = evaluate.EvalTask(id="warm-up", question=ex.question, answer=ex.answer, line=0)
-            res = {"split, sampled fills": summary(split_way(executor, tool, tasks, warm_up, sandbox, False)),
-                   "split, forced fills": summary(split_way(executor, tool, tasks, warm_up, sandbox, True))}
+            sampled = split_way(executor, tool, tasks, warm_up, sandbox, False)
+            forced = split_way(executor, tool, tasks, warm_up, sandbox, True)
+            res = {"split, sampled fills": summary(sampled), "split, forced fills": summary(forced)}
+            res["split, forced fills"]["same_arguments_as_sampled"] = sum(
+                a["arguments"] == b["arguments"] for a, b in zip(sampled, forced))
             evaluate.answer_direct(builder, evaluate.DIRECT["builder-direct"], fam.family, warm_up)
             direct = []
             for t in tasks:
@@ -104,6 +108,8 @@ def main() -> None:
         for k, r in res.items():
             extra = (f" (filling {r['fill']}, tool {r['tool']}; tokens generated {r['generated']}, forced "
                      f"{r['forced']}); {r['ratio_to_builder_direct']}x builder-direct") if "fill" in r else ""
+            if "same_arguments_as_sampled" in r:
+                extra += f"; arguments equal to the sampled fills' {r['same_arguments_as_sampled']}/{r['tasks']}"
             print(f"  {k:22} right {r['right']}/{r['tasks']}, CPU s/task {r['cpu_per_task']}{extra}")
 
 
