@@ -126,6 +126,10 @@ def test_routes_to_tools_and_none_goes_to_fallback(tmp_path, sandbox):
         assert sorted(call.schema["enum"]) == ["add", "none", "shout"]
     assert (report.by_tool, report.by_fallback, report.failed, report.errors) == (2, 1, 0, 0)
     assert r["a"]["cpu"]["model"] > 0 and r["a"]["cpu"]["tool"] > 0 and r["n"]["cpu"]["tool"] == 0
+    # the model's CPU split by step: routing and filling for a tool task, routing and the fallback for none
+    a, n = r["a"]["cpu"], r["n"]["cpu"]
+    assert a["route"] > 0 and a["fill"] > 0 and a["route"] + a["fill"] == pytest.approx(a["model"], abs=1e-3)
+    assert n["route"] > 0 and n["fill"] == 0 and n["model"] > n["route"]
     assert r["a"]["tokens"]["prompt"] > 0 and r["a"]["tokens"]["completion"] > 0
 
 
@@ -726,3 +730,18 @@ def test_a_fallback_record_keeps_the_full_reply_beside_the_answer_it_asks_for(tm
                                                                     "swapped with Cadan. Who has it?"}])
     _, recs = run_file(q, tmp_path / "out.jsonl", scripted(direct=reply), sandbox)
     assert (recs[0]["status"], recs[0]["answer"], recs[0]["reply"]) == ("fallback", "Cadan", reply)
+
+
+def test_report_splits_cpu_by_step():
+    """Routing, filling, tool and fallback means add up to the mean CPU per task (numpy as the reference)."""
+    rng = np.random.default_rng(5)
+    parts = rng.uniform(0.0, 2.0, size=(9, 4))  # route, fill, tool, fallback
+    recs = [AnswerRecord(id=str(i), status="tool" if fb < 1 else "fallback",
+                         cpu={"model": float(r + f + fb), "route": float(r), "fill": float(f), "tool": float(t)})
+            for i, (r, f, t, fb) in enumerate(parts)]
+    rep = summarise(recs, queue="q", out="o", skipped=0, wall_seconds=1.0, process_cpu_seconds=1.0,
+                    load_cpu_seconds=0.0)
+    st = rep.cpu_by_step
+    means = parts.mean(axis=0)
+    assert (st.routing, st.filling, st.tool, st.fallback) == pytest.approx(tuple(means), abs=1e-3)
+    assert st.routing + st.filling + st.tool + st.fallback == pytest.approx(rep.cpu_per_task["all"].mean, abs=1e-3)
