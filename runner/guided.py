@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from .draft import Drafter
+from .guess import Drafter
 from .forced import Cursor, continuations
 
 

@@ -150,7 +150,7 @@ class LocalModel:
         (`guided.decode`): the free greedy reply when that fits, else the grammar's. None when this model or
         schema is not one the forced path handles (the caller then uses `chat`)."""
         from . import forced, guided
-        from .draft import Drafter
+        from .guess import Drafter
 
         if not forced.supported(schema):
             return None

@@ -11,7 +11,7 @@ import random
 import jsonschema
 import pytest
 
-from runner.draft import Drafter, scan_values, shape
+from runner.guess import Drafter, scan_values, shape
 from runner.forced import Cursor, pattern_steps, supported
 from runner.shapecheck import infer_schema
 

@@ -1,4 +1,4 @@
-"""Drafts of an executor reply guessed from the question, for `guided.decode` to check in one batch.
+"""Guesses of an executor reply read from the question, for `guided.decode` to check in one batch.
 
 Arguments copy the question's values, mostly in the order the question gives them. After the values a reply
 already holds, the next value of the right kind is most often the next one in the question: the next number for
