@@ -264,6 +264,10 @@ class Resumed:
             return False
         return not (retry_failed and rec.status in ("failed", "error"))
 
+    def superseded(self) -> int:
+        """Records that are not the newest answer of their id (an edited question or a retried task)."""
+        return sum(1 for r in self.records if not is_bad_line(r)) - len(self.latest)
+
 
 def is_bad_line(record: AnswerRecord) -> bool:
     """A record about a queue line that held no usable task (older files have no error_kind: then any error)."""
