@@ -477,7 +477,7 @@ def _print_report(report, console: Console) -> None:
         f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
         f"errors {report.errors}{_kinds(report.error_kinds)}\n"
         + (f"superseded {report.superseded}: earlier records of tasks answered again\n" if report.superseded else "")
-        + (f"routes kept from an interrupted run: {report.routes_reused}\n" if report.routes_reused else "") +
+        + (f"routes kept from an interrupted run: {report.routes_reused}\n" if report.routes_reused else "")
         + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +
         f"CPU {report.total_cpu_seconds:.1f} s in all: {report.task_cpu_seconds:.1f} s in tasks, "
         f"{report.model_load_cpu_seconds:.1f} s loading models\n"

@@ -425,7 +425,7 @@ class RouteJournal:
         self.path = path
         self.router_key = router_key
         self.entries: dict[tuple[str, str], dict[str, Any]] = {}
-        self._fh: IO[bytes] | None = None
+        self._fd: int | None = None
         if path is not None and path.exists():
             for raw in path.read_bytes().split(b"\n"):
                 try:
@@ -444,18 +444,20 @@ class RouteJournal:
         entry = {"id": task.id, "question": question_digest(task.question), "router": self.router_key,
                  "route": route}
         try:
-            if self._fh is None:
-                self._fh = open(self.path, "ab")
-            self._fh.write((json.dumps(entry, ensure_ascii=False) + "\n").encode("utf-8", "backslashreplace"))
-            self._fh.flush()
-            os.fsync(self._fh.fileno())
+            if self._fd is None:
+                self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+            os.write(self._fd, (json.dumps(entry, ensure_ascii=False) + "\n").encode("utf-8", "backslashreplace"))
+            os.fsync(self._fd)
         except OSError:
             pass  # the journal only saves routing work; the answers file is what must be written
 
     def close(self, finished: bool) -> None:
-        if self._fh is not None:
-            self._fh.close()
-            self._fh = None
+        if self._fd is not None:
+            try:
+                os.close(self._fd)
+            except OSError:
+                pass
+            self._fd = None
         if finished and self.path is not None:
             try:
                 self.path.unlink(missing_ok=True)

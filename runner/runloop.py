@@ -345,6 +345,7 @@ class RunReport(BaseModel):
     repaired_bytes: int = 0
     interrupted: bool = False
     superseded: int = Field(0, description="earlier answer records replaced by this run's (edited question, retry)")
+    routes_reused: int = Field(0, description="route decisions taken from an interrupted run's journal")
     error_kinds: dict[str, int] = Field(default_factory=dict, description="error records by kind")
 
 
@@ -383,7 +384,7 @@ def prompt_cpu_per_token(records: list[AnswerRecord]) -> tuple[float, str]:
 
 def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int, wall_seconds: float,
               process_cpu_seconds: float, load_cpu_seconds: float, repaired_bytes: int = 0,
-              interrupted: bool = False, superseded: int = 0) -> RunReport:
+              interrupted: bool = False, superseded: int = 0, routes_reused: int = 0) -> RunReport:
     """The run report from this run's records and its measured totals (pure)."""
     answered = [r for r in records if r.status != "error"]
     by_route: dict[str, list[float]] = {}
@@ -410,7 +411,7 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
                              cached_share=round(tokens.cached / tokens.prompt, 3) if tokens.prompt else 0.0,
                              cpu_per_prompt_token=round(rate, 5), rate_source=source,
                              cpu_seconds_saved=round(tokens.cached * rate, 2)),
-        repaired_bytes=repaired_bytes, interrupted=interrupted, superseded=superseded,
+        repaired_bytes=repaired_bytes, interrupted=interrupted, superseded=superseded, routes_reused=routes_reused,
         error_kinds={k: sum((r.error_kind or "input") == k for r in records if r.status == "error")
                      for k in sorted({r.error_kind or "input" for r in records if r.status == "error"})})
 
@@ -432,6 +433,7 @@ class RunLoop:
         self.records: list[AnswerRecord] = []
         self.skipped = 0
         self.superseded = 0
+        self.routes_reused = 0
         self._earlier = set(self.resumed.latest)
         self._done_lines = set(self.resumed.done_error_lines)
 
@@ -463,6 +465,7 @@ class RunLoop:
                 work.usage = work.usage + work.route.usage
                 if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
                     work.error = work.route.note
+                self.routes_reused += 1
                 return None
             except ValueError:
                 work.route = None
@@ -557,7 +560,7 @@ def run(loop: RunLoop, reader: QueueReader, *, follow: bool, out: str, load_cpu_
     return summarise(loop.records, queue=reader.source, out=out, skipped=loop.skipped, wall_seconds=sw.wall_seconds,
                      process_cpu_seconds=sw.cpu_seconds, load_cpu_seconds=load_cpu_seconds(),
                      repaired_bytes=loop.resumed.repaired_bytes, interrupted=interrupted,
-                     superseded=loop.superseded)
+                     superseded=loop.superseded, routes_reused=loop.routes_reused)
 
 
 def default_out(queue: str) -> Path | None:
