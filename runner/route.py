@@ -21,10 +21,13 @@ from .tools import Card
 ROUTER_TEMPLATE = "router.j2"
 ROUTER_NONE_TEMPLATE = "router_none.j2"
 NONE = "none"
-# The most tools the router is shown when their cards do not all fit the context: measured on the 0.5B
-# executor with 200 generated cards (tests/test_route_budget.py), a shortlist of this size still fits with
-# two demos per tool for the sample cards and keeps the prompt to about a third of the 4k context.
+# The most tools the router is shown when their cards do not all fit the context (8 cards with two demos
+# each came to about 1,000 of the 4,096 tokens with the sample tools among 200 generated cards), and the
+# share of the best BM25+ score a card needs to be shown. With every card within 8 shown, the 0.5B router
+# sent a departures question to none when 7 unrelated cards sharing one word ("sail") stood beside it
+# (scores 116 against 4.3); cards under a tenth of the best are that kind of chance match.
 SHORTLIST_SIZE = 8
+SHORTLIST_FLOOR = 0.1
 
 
 class Route(BaseModel):
@@ -99,21 +102,45 @@ class Fitted:
     shortlisted: bool
 
 
+_ALL_CARDS_SIZE: dict[tuple[int, str], int] = {}
+
+
+def _all_cards_size(model: ChatModel, cards: list[Card], demos: int) -> int:
+    """Tokens of the router prompt with every card and an empty question, remembered per model and card set
+    (tokenizing 200 cards for every question cost more than routing it)."""
+    import hashlib
+
+    ident = hashlib.sha256(json.dumps([[c.name, c.description, [d.question for d in c.demos]] for c in cards])
+                           .encode("utf-8", "surrogatepass")).hexdigest() + f":{demos}"
+    key = (id(model), ident)
+    if key not in _ALL_CARDS_SIZE:
+        _ALL_CARDS_SIZE[key] = prompt_size(model, router_messages(cards, "", demos)) or 0
+    return _ALL_CARDS_SIZE[key]
+
+
 def fit_prompt(model: ChatModel, cards: list[Card], question: str) -> Fitted:
     """The router prompt with every card if it fits the model's context (with room for the reply); else the
-    BM25 shortlist of the cards closest to the question, as many of them (up to SHORTLIST_SIZE) and with as
-    many demos each as fit. An empty shortlist means no card shares a word with the question. Raises
+    BM25+ shortlist of the cards closest to the question (up to SHORTLIST_SIZE, none under SHORTLIST_FLOOR of
+    the best score), as many of them and with as many demos each as fit. An empty shortlist means no card shares a word with the question. Raises
     ContextOverflowError when not even one card fits beside the question. A model that cannot measure its
     prompts gets every card, as before."""
     n_ctx = getattr(model, "n_ctx", None)
     cards = stable_cards(cards)
-    messages = router_messages(cards, question, demos_per_tool(cards))
-    if n_ctx is None or prompt_size(model, messages) is None:
+    demos = demos_per_tool(cards)
+    messages = router_messages(cards, question, demos)
+    if n_ctx is None or prompt_size(model, [{"role": "user", "content": question}]) is None:
         return Fitted(cards, messages, None, False)
-    size = prompt_size(model, messages) or 0
-    if size + reply_budget(cards) <= n_ctx:
-        return Fitted(cards, messages, size, False)
-    ranked = [r.card for r in shortlist(cards, question, SHORTLIST_SIZE)]
+    # every card: the remembered size of the cards' part plus the question's (a few tokens of slack for
+    # how the two join); measured exactly when it is close
+    estimate = _all_cards_size(model, cards, demos) + (prompt_size(model, [{"role": "user", "content": question}])
+                                                       or 0)
+    if estimate > n_ctx + 64:
+        size = estimate
+    else:
+        size = prompt_size(model, messages) or 0
+        if size + reply_budget(cards) <= n_ctx:
+            return Fitted(cards, messages, size, False)
+    ranked = [r.card for r in shortlist(cards, question, SHORTLIST_SIZE, SHORTLIST_FLOOR)]
     smallest = size
     for k in range(len(ranked), 0, -1):
         chosen = stable_cards(ranked[:k])

@@ -21,8 +21,10 @@ _WORD = re.compile(r"[^\W_]+", re.UNICODE)
 
 
 def words(text: str) -> list[str]:
-    """Lower-case word tokens (letters and digits; punctuation and underscores split words)."""
-    return _WORD.findall(text.casefold())
+    """Lower-case word tokens (punctuation and underscores split words). Numbers are left out: they are the
+    data of one question (minutes, dates, codes), not what kind of question it is, and matching them ranked
+    unrelated cards whose demos happen to hold the same numbers."""
+    return [w for w in _WORD.findall(text.casefold()) if not w.isdigit()]
 
 
 def card_text(card: Card) -> str:
@@ -55,10 +57,11 @@ def rank(cards: list[Card], question: str) -> list[Ranked]:
     return [Ranked(cards[i], float(scores[i])) for i in order]
 
 
-def shortlist(cards: list[Card], question: str, k: int) -> list[Ranked]:
-    """The `k` cards closest to the question, best first, leaving out cards that share no word with it
-    (so a question unlike every tool gets an empty shortlist)."""
-    return [r for r in rank(cards, question)[:k] if r.score > 0]
+def shortlist(cards: list[Card], question: str, k: int, floor: float = 0.0) -> list[Ranked]:
+    """The `k` cards closest to the question, best first, leaving out cards that share no word with it (so a
+    question unlike every tool gets an empty shortlist) and cards scoring below `floor` times the best."""
+    ranked = [r for r in rank(cards, question)[:k] if r.score > 0]
+    return [r for r in ranked if r.score >= floor * ranked[0].score] if ranked else []
 
 
 def margin(ranked: list[Ranked]) -> float:

@@ -126,7 +126,7 @@ def test_real_run_with_odd_inputs_writes_a_record_for_each_and_goes_on(tmp_home,
         b'{"id": "bytes", "question": "When does the Ga\xffnnet leave?"}\n',
         json.dumps({"id": "dep", "question": dep["question"]}).encode() + b"\n",
     ]))
-    assert len(json.loads(q.read_text().splitlines()[0])["question"]) > 50_000
+    assert len(json.loads(q.read_bytes().splitlines()[0])["question"]) > 50_000
     out = tmp_path / "answers.jsonl"
     proc = jw("run", str(q), "--out", str(out), "--fallback", "none", "--json")
     assert proc.returncode == 0, proc.stderr[-2000:]
@@ -142,27 +142,40 @@ def test_real_run_with_odd_inputs_writes_a_record_for_each_and_goes_on(tmp_home,
 
 
 @pytest.mark.models
-def test_real_router_with_two_hundred_tools_stays_inside_the_context(tmp_home):
+def test_real_router_with_two_hundred_tools_stays_inside_the_context_and_routes_as_well(tmp_home):
+    """The demo queue routed by the real executor with two real tools among 198 generated cards: every prompt
+    (measured with the model's own chat template) fits the 4,096-token context, every question of the two
+    tools' families reaches its tool, and over all 24 questions routing is about as right as with the two
+    tools alone (measured: 16 of 24 with 200 cards, 17 with 2; the misses are other families' questions
+    routed to a tool, which the run loop's fit check then sends to the fallback)."""
     need_models()
     from runner.llm import LocalModel
     from runner import models, settings
     from runner.route import fit_prompt, route
+    from runner.tools import slug
 
     executor = LocalModel(models.for_role(settings.load_registry(), "executor"), n_threads=1)
     tools = real_tools()
-    cards = generated_cards(198) + [t.card for t in tools]
-    rows = []
-    for fam, name in (("departures", "departures"), ("working_days", "working-days")):
-        test = [json.loads(line) for line in (ROOT / "samples" / fam / "test.jsonl").read_text().splitlines()]
-        rows += [(t["question"], name) for t in test[5:7]]
-    rows.append(("Who repaired the roof of the harbour office after the storm?", "none"))
-    for question, want in rows:
-        fitted = fit_prompt(executor, cards, question)
+    many = generated_cards(198) + [t.card for t in tools]
+    queue = [json.loads(line) for line in (ROOT / "samples" / "queue.jsonl").read_text().splitlines()]
+    expected = {e["id"]: e for e in map(json.loads, (ROOT / "samples" / "queue_expected.jsonl").read_text().splitlines())}
+    right = {"many": 0, "two": 0}
+    for q in queue:
+        family = expected[q["id"]]["family"]
+        want = slug(family) if family and slug(family) in {t.name for t in tools} else "none"
+        fitted = fit_prompt(executor, many, q["question"])
         assert fitted.shortlisted and fitted.tokens is not None
-        assert fitted.tokens + 40 <= executor.n_ctx  # measured with the model's own chat template
-        r = route(executor, cards, question)
-        assert r.tool == want, (question, r)
-        assert r.prompt_tokens == fitted.tokens
+        assert fitted.tokens + 40 <= executor.n_ctx
+        r = route(executor, many, q["question"])
+        assert r.prompt_tokens == fitted.tokens and len(r.shortlist) <= 8
+        if want != "none":
+            assert r.tool == want, (q, r)
+        right["many"] += r.tool == want
+    for q in queue:  # the two tools alone, after the others so their shared prompt prefix stays cached
+        family = expected[q["id"]]["family"]
+        want = slug(family) if family and slug(family) in {t.name for t in tools} else "none"
+        right["two"] += route(executor, [t.card for t in tools], q["question"]).tool == want
+    assert right["many"] >= right["two"] - 2, right
 
 
 @pytest.mark.models
