@@ -227,7 +227,8 @@ def test_real_fallback_answers_with_a_damaged_store_and_the_cli_names_bad_family
     q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "How many days are there in a week?"}])
     proc = jw("run", str(q), "--out", str(tmp_path / "a.jsonl"), "--fallback", "executor", "--json")
     assert proc.returncode == 0, proc.stderr[-2000:]
-    assert "cannot be read" in proc.stderr and f"mv {folder}" in " ".join(proc.stderr.split())
+    said = " ".join(proc.stderr.split())
+    assert "cannot be read" in said and f"mv {folder}" in said
     rec = json.loads((tmp_path / "a.jsonl").read_text())
     assert rec["status"] == "fallback" and rec["answer"]
     proc = jw("run", str(q), "--out", str(tmp_path / "b.jsonl"), "--fallback", "none")
