@@ -128,7 +128,7 @@ def test_real_run_with_odd_inputs_writes_a_record_for_each_and_goes_on(tmp_home,
     ]))
     assert len(json.loads(q.read_bytes().splitlines()[0])["question"]) > 50_000
     out = tmp_path / "answers.jsonl"
-    proc = jw("run", str(q), "--out", str(out), "--fallback", "none", "--json")
+    proc = jw("answer", str(q), "--out", str(out), "--fallback", "none", "--json")
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert "Traceback" not in proc.stderr
     recs = {r["id"]: r for r in map(json.loads, out.read_text().splitlines())}
@@ -193,7 +193,7 @@ def test_real_grouped_run_killed_while_routing_keeps_its_route_decisions(tmp_hom
     q = write_queue(tmp_path / "q.jsonl", [{"id": t["id"], "question": t["question"]} for t in tasks])
     out = tmp_path / "answers.jsonl"
     journal = journal_path(out)
-    cmd = [JW, "run", str(q), "--out", str(out), "--fallback", "none", "--json"]
+    cmd = [JW, "answer", str(q), "--out", str(out), "--fallback", "none", "--json"]
     env = {**os.environ, "JIGWRIGHT_THREADS": "1"}
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
     deadline = time.time() + 300
@@ -225,13 +225,13 @@ def test_real_fallback_answers_with_a_damaged_store_and_the_cli_names_bad_family
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "cache.db").write_bytes(b"\x00not sqlite\x00" * 512)
     q = write_queue(tmp_path / "q.jsonl", [{"id": "a", "question": "How many days are there in a week?"}])
-    proc = jw("run", str(q), "--out", str(tmp_path / "a.jsonl"), "--fallback", "executor", "--json")
+    proc = jw("answer", str(q), "--out", str(tmp_path / "a.jsonl"), "--fallback", "executor", "--json")
     assert proc.returncode == 0, proc.stderr[-2000:]
     said = " ".join(proc.stderr.split())
     assert "cannot be read" in said and f"mv {folder}" in said
     rec = json.loads((tmp_path / "a.jsonl").read_text())
     assert rec["status"] == "fallback" and rec["answer"]
-    proc = jw("run", str(q), "--out", str(tmp_path / "b.jsonl"), "--fallback", "none")
+    proc = jw("answer", str(q), "--out", str(tmp_path / "b.jsonl"), "--fallback", "none")
     assert proc.returncode == 16 and "Traceback" not in proc.stderr
     fam = tmp_path / "fam.jsonl"
     fam.write_bytes(b'{"question": "a?", "answer": 1}\n{"question": "b\xfe?", "answer": 2}\n')
