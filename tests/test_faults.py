@@ -21,7 +21,7 @@ from doubles import ScriptedModel
 from runner.errors import OutputError
 from runner.queue import AnswerRecord, AnswerWriter, QueueReader, RouteJournal, journal_path, read_answers
 from runner.runloop import Engine, RunLoop, RunOptions, run
-from test_reliability import generated_cards
+from bench.route_budget import generated_cards
 from test_runloop import TOOLS, make_tool, real_tools, scripted, write_queue
 
 JW = str(Path(sys.executable).with_name("jigwright"))

@@ -26,6 +26,7 @@ from runner.runloop import Engine, RunLoop, RunOptions, run
 from runner.shortlist import margin, rank, shortlist
 from runner.store import ToolStore
 from runner.tools import Card, Demo
+from bench.route_budget import generated_cards
 from test_runloop import ADD, SHOUT, TOOLS, make_tool, scripted, write_queue
 
 JW = str(Path(sys.executable).with_name("jigwright"))
@@ -213,20 +214,6 @@ def test_a_fill_prompt_that_overflows_is_a_too_long_record(sandbox):
     rec = engine.complete(work)
     assert (rec.status, rec.error_kind) == ("error", "too_long")
     assert "answering with the tool failed: the prompt is" in rec.error and "300-token context of model 'double'" in rec.error
-
-
-def generated_cards(n: int) -> list[Card]:
-    """n usage cards of invented, unrelated kinds (for the router's context budget only)."""
-    subjects = ["rope", "paint", "fuel", "ice", "bait", "sail", "net", "crate", "oar", "lamp"]
-    verbs = ["count", "weigh", "price", "order", "date", "measure", "sort", "check", "rate", "list"]
-    cards = []
-    for i in range(n):
-        s, v = subjects[i % 10], verbs[(i // 10) % 10]
-        cards.append(Card(name=f"{v}-{s}-{i}", description=f"{v} the {s} stock of shed {i}",
-                          schema={"type": "object", "properties": {"x": {"type": "integer"}}},
-                          demos=[Demo(question=f"Please {v} the {s} in shed {i} for lot {i * 7}.", arguments={"x": i}),
-                                 Demo(question=f"How do we {v} {s} at shed {i}?", arguments={"x": i})]))
-    return cards
 
 
 def test_two_hundred_cards_are_shortlisted_to_fit_and_the_router_still_routes(tmp_path, sandbox):
