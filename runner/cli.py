@@ -585,7 +585,7 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
     rec = ask(question, options, setup)
     if as_json:
         out.print_json(rec.model_dump_json())
-        return
+        sys.exit(1 if rec.status == "error" else 0)
     from rich.markup import escape
 
     conf = f" (confidence {rec.confidence:.2f})" if rec.confidence is not None else ""
@@ -602,6 +602,8 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
     out.print(f"cost: {rec.cpu.model:.2f} CPU s model + {rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
               f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
               highlight=False, soft_wrap=True)
+    if rec.status == "error":
+        sys.exit(1)
 
 
 @app.command("eval")

@@ -666,15 +666,25 @@ def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *
 
 
 def ask(question: str, options: RunOptions, setup: Setup) -> AnswerRecord:
-    """`jigwright ask`: the run loop's path for one question, nothing written."""
+    """`jigwright ask`: the run loop's path for one question, nothing written. A question that is not text
+    (bytes that are not UTF-8 reach argv as lone surrogates) or too long for the context is an InputError;
+    any other failure comes back as the error record."""
     from .errors import InputError
+    from .queue import lone_surrogate
     from .sandbox import Sandbox
 
     if not question.strip():
         raise InputError("the question is empty")
+    at = lone_surrogate(question)
+    if at is not None:
+        raise InputError(f"the question is not UTF-8 text (byte 0x{ord(question[at]) & 0xff:02x} at character "
+                         f"{at + 1})")
     with Sandbox(pool_size=1) as sandbox:
         engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
-        return engine.answer(Task(id="ask", question=question.strip(), line=0))
+        record = engine.answer(Task(id="ask", question=question.strip(), line=0))
+    if record.error_kind == "too_long":
+        raise InputError(record.error or "the question is too long")
+    return record
 
 
 class Score(BaseModel):

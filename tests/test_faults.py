@@ -22,7 +22,7 @@ from runner.errors import OutputError
 from runner.queue import AnswerRecord, AnswerWriter, QueueReader, RouteJournal, journal_path, read_answers
 from runner.runloop import Engine, RunLoop, RunOptions, run
 from bench.route_budget import generated_cards
-from test_runloop import TOOLS, make_tool, real_tools, scripted, write_queue
+from test_runloop import TOOLS, family_tasks, real_tools, scripted, store_real_tools, write_queue
 
 JW = str(Path(sys.executable).with_name("jigwright"))
 TARGET = str(Path(__file__).with_name("kill_target.py"))
@@ -113,11 +113,7 @@ def jw(*args: str, timeout: int = 600, **kw) -> subprocess.CompletedProcess:
 @pytest.mark.models
 def test_real_run_with_odd_inputs_writes_a_record_for_each_and_goes_on(tmp_home, tmp_path):
     need_models()
-    from runner.store import ToolStore
-
-    with ToolStore() as store:
-        for t in real_tools():
-            store.put(t)
+    store_real_tools()
     dep = json.loads((ROOT / "samples" / "departures" / "test.jsonl").read_text().splitlines()[2])
     q = tmp_path / "q.jsonl"
     q.write_bytes(b"".join([
@@ -181,15 +177,8 @@ def test_real_router_with_two_hundred_tools_stays_inside_the_context_and_routes_
 @pytest.mark.models
 def test_real_grouped_run_killed_while_routing_keeps_its_route_decisions(tmp_home, tmp_path):
     need_models()
-    from runner.store import ToolStore
-
-    with ToolStore() as store:
-        for t in real_tools():
-            store.put(t)
-    tasks = []
-    for fam in ("departures", "working_days"):
-        test = [json.loads(line) for line in (ROOT / "samples" / fam / "test.jsonl").read_text().splitlines()]
-        tasks += [{"id": t["id"], "question": t["question"], "answer": t["answer"]} for t in test[7:10]]
+    store_real_tools()
+    tasks = family_tasks(7, 10)
     q = write_queue(tmp_path / "q.jsonl", [{"id": t["id"], "question": t["question"]} for t in tasks])
     out = tmp_path / "answers.jsonl"
     journal = journal_path(out)

@@ -199,6 +199,19 @@ def test_a_question_too_long_for_the_context_is_a_too_long_record_without_a_mode
     assert all(long_q not in c.last_user for c in model.calls) and r["a"]["answer"] == 3
 
 
+def test_ask_calls_a_too_long_or_undecodable_question_an_input_error():
+    from runner.runloop import Setup, ask
+
+    model = scripted()
+    model.n_ctx = 400
+    setup = Setup(tools=TOOLS, executor=model, fallback_model=None)
+    with pytest.raises(InputError, match=r"the question is about 1,003 tokens; .* 400-token context"):
+        ask("Add " + "and " * 1000 + "2.", RunOptions(fallback="executor"), setup)
+    with pytest.raises(InputError, match=r"not UTF-8 text \(byte 0xff at character 5\)"):
+        ask("Add \udcff and 2.", RunOptions(fallback="executor"), setup)  # how argv holds a stray 0xff byte
+    assert ask("Add 2 and 2.", RunOptions(fallback="executor"), setup).answer == 4
+
+
 def test_a_fill_prompt_that_overflows_is_a_too_long_record(sandbox):
     from runner.route import Route
     from runner.runloop import _Work
