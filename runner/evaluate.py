@@ -402,8 +402,12 @@ class ResultCache:
         self.close()
 
     def get(self, key: str) -> TaskResult | None:
+        """A stored result, or None when there is none or it no longer validates (it is computed again)."""
         raw = self._cache.get(key)
-        return TaskResult.model_validate_json(raw) if raw else None
+        try:
+            return TaskResult.model_validate_json(raw) if raw else None
+        except ValueError:
+            return None
 
     def put(self, key: str, result: TaskResult) -> None:
         self._cache.set(key, result.model_dump_json())

@@ -49,7 +49,7 @@ class ToolStore:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-    def by_key(self, key: str) -> Tool | None:
+    def by_key(self, key: str, name: str | None = None) -> Tool | None:
         """The tool stored under `key`; None if there is none, or if its record no longer validates (then a
         warning names it and the caller builds afresh)."""
         try:
@@ -63,8 +63,9 @@ class ToolStore:
         except (ValidationError, ValueError) as exc:
             first = exc.errors()[0] if isinstance(exc, ValidationError) else {"loc": (), "msg": str(exc)}
             where = ".".join(str(p) for p in first["loc"]) or "(record)"
-            self.warnings.append(f"skipped the stored record {key[:12]}… in {self.path}: it does not validate "
-                                 f"({where}: {first['msg']}); `jigwright tools retire NAME` removes it")
+            which = f"of tool '{name}' (key {key[:12]}…)" if name else f"{key[:12]}…"
+            self.warnings.append(f"skipped the stored record {which} in {self.path}: it does not validate "
+                                 f"({where}: {first['msg']}); `jigwright tools retire {name or 'NAME'}` removes it")
             return None
 
     def put(self, tool: Tool) -> None:
@@ -87,7 +88,7 @@ class ToolStore:
             key = self._cache.get(f"name:{name}")
         except sqlite3.Error as exc:
             raise damaged(self.path, exc) from None
-        tool = self.by_key(key) if key else None
+        tool = self.by_key(key, name) if key else None
         if tool is None and not missing_ok:
             if key:
                 raise ToolNotFoundError(f"the stored record of tool '{name}' does not validate ({self.warnings[-1]})")

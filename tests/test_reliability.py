@@ -367,7 +367,7 @@ def test_a_stored_record_that_no_longer_validates_is_skipped_with_a_warning(tmp_
         store.put(SHOUT)
         store._cache.set(f"key:{SHOUT.key}", json.dumps({"name": "shout", "code": 1}))
         assert [t.name for t in store.tools()] == ["add"]
-        assert "skipped the stored record k-shout" in store.warnings[0] and "does not validate" in store.warnings[0]
+        assert "skipped the stored record of tool 'shout' (key k-shout" in store.warnings[0] and "does not validate" in store.warnings[0]
     proc = subprocess.run([JW, "tools", "list"], capture_output=True, text=True, env={**os.environ, "COLUMNS": "80"})
     assert proc.returncode == 0 and "add" in proc.stdout and "warning" in proc.stderr
     with ToolStore() as store:
