@@ -142,8 +142,8 @@ def test_real_router_with_two_hundred_tools_stays_inside_the_context_and_routes_
     """The demo queue routed by the real executor with two real tools among 198 generated cards: every prompt
     (measured with the model's own chat template) fits the 4,096-token context, every question of the two
     tools' families reaches its tool, and over all 24 questions routing is about as right as with the two
-    tools alone (measured: 16 of 24 with 200 cards, 17 with 2; the misses are other families' questions
-    routed to a tool, which the run loop's fit check then sends to the fallback)."""
+    tools alone (within two; the misses are other families' questions routed to a tool, which the run loop's
+    fit check then sends to the fallback). bench/route_budget.py prints the figures."""
     need_models()
     from runner.llm import LocalModel
     from runner import models, settings
