@@ -22,7 +22,7 @@ ROUTER_TEMPLATE = "router.j2"
 ROUTER_NONE_TEMPLATE = "router_none.j2"
 NONE = "none"
 # The most tools the router is shown when their cards do not all fit the context (with two sample tools among
-# 200 generated cards the largest shortlisted prompt was 1,125 of 4,096 tokens: bench/route_budget.py), and the
+# 200 generated cards the largest shortlisted prompt was 1,114 of 4,096 tokens: bench/route_budget.py), and the
 # share of the best BM25+ score a card needs to be shown. With every card within 8 shown, the 0.5B router
 # sent a departures question to none when 7 unrelated cards sharing one word ("sail") stood beside it
 # (scores 116 against 4.3); cards under a tenth of the best are that kind of chance match.
