@@ -249,16 +249,10 @@ def direct_messages(question: str) -> list[Message]:
     return [{"role": "system", "content": prompts.render(DIRECT_TEMPLATE)}, {"role": "user", "content": question}]
 
 
-<<<<<<< HEAD
-def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = 192) -> DirectAnswer:
+def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = DIRECT_MAX_TOKENS) -> DirectAnswer:
     """Ask `model` for a short worked answer ending in 'Answer: ...' and cut out the answer the question asks
     for (answerform's rules); a reply cut off by the token limit before any 'Answer:' gives an empty answer (not
     a fragment of working)."""
-=======
-def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = DIRECT_MAX_TOKENS) -> DirectAnswer:
-    """Ask `model` for a short worked answer ending in 'Answer: ...' and take that part; a reply cut off by
-    the token limit before any 'Answer:' gives an empty answer (not a fragment of working)."""
->>>>>>> b59c17b (Run loop: one task's failure is that task's error record (a kind and a one-line message) and the queue goes on; grouped runs journal route decisions as they are made; a record that cannot be serialised is written as an 'unwritable' error record; a write that fails is cut back and reported (OutputError))
     reply = model.chat(direct_messages(question), seed=seed, temperature=0.0, max_tokens=max_tokens)
     if reply.finish_reason == "length" and not re.search(r"answer\s*(?:is)?\s*[:=]", reply.text, re.IGNORECASE):
         return DirectAnswer(answer="", text=reply.text, usage=reply.usage)  # cut off before it answered

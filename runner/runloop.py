@@ -127,11 +127,7 @@ class _Work:
     error: str | None = None
 
     def record(self, status: str, answer: Any = None, tool_backed: bool = False,
-<<<<<<< HEAD
-               reply: str | None = None) -> AnswerRecord:
-=======
-               error_kind: str | None = None) -> AnswerRecord:
->>>>>>> b59c17b (Run loop: one task's failure is that task's error record (a kind and a one-line message) and the queue goes on; grouped runs journal route decisions as they are made; a record that cannot be serialised is written as an 'unwritable' error record; a write that fails is cut back and reported (OutputError))
+               reply: str | None = None, error_kind: str | None = None) -> AnswerRecord:
         r = self.route
         u = self.usage
         return AnswerRecord(
