@@ -19,7 +19,8 @@ from pydantic import BaseModel, Field, ValidationError
 
 from . import prompts, shapecheck
 from .errors import InputError
-from .execute import Filled, answers_match, fill_arguments, normalise
+from .execute import REL_TOL, Filled, answers_match, fill_arguments
+from .fingerprint import code_fingerprint
 from .llm import ChatModel, Message
 from .meter import Usage
 from .store import ToolStore
@@ -70,11 +71,14 @@ class Family(BaseModel):
     description: str = ""
     examples: list[Example]
     source: str
+    rel_tol: float = Field(REL_TOL, description="relative tolerance for float answers (family.toml `tolerance`)")
 
 
 def parse_solved(source: str, lines: list[str]) -> list[Example]:
     """Solved examples from JSONL lines (question, answer, optional id); blank lines are skipped and a bad line
-    is an InputError naming source and line. Family files and evaluation task files share this format."""
+    is an InputError naming source and line. Family files and evaluation task files share this format. An
+    answer may not be null (there is nothing to check a tool against), and text may not hold lone surrogate
+    escapes ("\\ud800": not Unicode)."""
     examples: list[Example] = []
     seen: set[str] = set()
     for i, line in enumerate(lines, 1):
@@ -91,6 +95,11 @@ def parse_solved(source: str, lines: list[str]) -> list[Example]:
                 raise InputError(f"{source}:{i}: missing '{key}'")
         if not isinstance(raw["question"], str) or not raw["question"].strip():
             raise InputError(f"{source}:{i}: 'question' must be non-empty text")
+        if raw["answer"] is None:
+            raise InputError(f"{source}:{i}: 'answer' is null: give the solved answer (a number, text, yes/no "
+                             f"or a list)")
+        if _has_surrogate(raw):
+            raise InputError(f"{source}:{i}: holds a lone surrogate escape (\\ud800-\\udfff): not Unicode text")
         ex_id = str(raw.get("id", f"line-{i}"))
         if ex_id in seen:
             raise InputError(f"{source}:{i}: duplicate id '{ex_id}'")
@@ -99,13 +108,37 @@ def parse_solved(source: str, lines: list[str]) -> list[Example]:
     return examples
 
 
-def load_family(path: Path, name: str | None = None, description: str | None = None) -> Family:
-    """Read a family file (JSONL: question, answer, optional id); a family.toml beside it supplies the name
-    and description unless given. Bad lines are an InputError naming file and line."""
+def _has_surrogate(value: Any) -> bool:
+    if isinstance(value, str):
+        return any("\ud800" <= ch <= "\udfff" for ch in value)
+    if isinstance(value, dict):
+        return any(_has_surrogate(k) or _has_surrogate(v) for k, v in value.items())
+    if isinstance(value, list):
+        return any(_has_surrogate(v) for v in value)
+    return False
+
+
+def read_lines(path: Path) -> list[str]:
+    """A JSONL file's lines, decoded as UTF-8 line by line: a line that is not UTF-8 is an InputError naming
+    file, line and byte (never silently repaired)."""
     try:
-        lines = path.read_text(encoding="utf-8").splitlines()
+        data = path.read_bytes()
     except OSError as exc:
         raise InputError(f"{path}: cannot read: {exc.strerror}") from exc
+    lines = []
+    for i, raw in enumerate(data.split(b"\n"), 1):
+        try:
+            lines.append(raw.decode("utf-8").rstrip("\r"))
+        except UnicodeDecodeError as exc:
+            raise InputError(f"{path}:{i}: not valid UTF-8: byte 0x{raw[exc.start]:02x} at byte {exc.start + 1} "
+                             f"of the line; save the file as UTF-8") from None
+    return lines
+
+
+def load_family(path: Path, name: str | None = None, description: str | None = None) -> Family:
+    """Read a family file (JSONL: question, answer, optional id); a family.toml beside it supplies the name,
+    description and float tolerance unless given. Bad lines are an InputError naming file and line."""
+    lines = read_lines(path)
     examples = parse_solved(str(path), lines)
     if len(examples) < 2:
         raise InputError(f"{path}: a family needs at least 2 solved examples (found {len(examples)})")
@@ -117,15 +150,20 @@ def load_family(path: Path, name: str | None = None, description: str | None = N
         except tomllib.TOMLDecodeError as exc:
             raise InputError(f"{toml}: not valid TOML: {exc}") from exc
     default_name = path.parent.name if path.stem in ("examples", "family") else path.stem
+    tolerance = about.get("tolerance", REL_TOL)
+    if isinstance(tolerance, bool) or not isinstance(tolerance, (int, float)) or not 0 <= tolerance < 1:
+        raise InputError(f"{toml}: 'tolerance' must be a relative tolerance between 0 and 1, got {tolerance!r}")
     return Family(name=slug(name or about.get("name") or default_name),
-                  description=description or about.get("description", ""), examples=examples, source=str(path))
+                  description=description or about.get("description", ""), examples=examples, source=str(path),
+                  rel_tol=float(tolerance))
 
 
 # ---- settings and report ----------------------------------------------------------------------------------
 
 class BuildSettings(BaseModel):
-    """Knobs of one build; all but the CPU budget are part of the cache key (the budget only decides when to
-    stop sampling, so a tool built under one budget is the same tool under another)."""
+    """Knobs of one build. All but the CPU budget are part of the cache key; the budget decides whether a
+    stored outcome may be reused (see `budget_covers`): a verified tool is reused whatever the budget, a
+    failed or unverified one only if it was not cut short by a smaller budget than the one asked for now."""
 
     draft_examples: int = 3
     shape_samples: int = 4
@@ -160,6 +198,9 @@ class BuildReport(BaseModel):
     steps: dict[str, StepCost] = Field(default_factory=lambda: {s: StepCost() for s in STEPS})
     stopped: str = ""
     failures: list[str] = Field(default_factory=list)
+    budget_cpu_minutes: float | None = None
+    runner: str = ""
+    reused: str = ""  # how a stored tool of an older runner was reused ("" when built or found as is)
 
     @property
     def builder_cpu(self) -> float:
@@ -308,11 +349,30 @@ def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answ
     return [s for s in wanted if ok.get(s, False)]
 
 
-def build_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
+def inputs_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
+    """What a build starts from: examples, description, float tolerance, both models, the prompt templates and
+    the settings (all but the budget)."""
     payload = {"examples": [e.model_dump(exclude={"line"}) for e in family.examples], "description": family.description,
-               "builder": builder_sha, "executor": executor_sha, "templates": prompts.template_hash(*TEMPLATES),
+               "rel_tol": family.rel_tol, "builder": builder_sha, "executor": executor_sha,
+               "templates": prompts.template_hash(*TEMPLATES),
                "settings": settings.model_dump(exclude={"budget_cpu_minutes"})}
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
+
+
+def build_key(family: Family, builder_sha: str, executor_sha: str, settings: BuildSettings) -> str:
+    """The tool store key of a build: its inputs and the fingerprint of the runner code that builds and checks
+    (so an upgraded runner does not take an old outcome for its own)."""
+    payload = {"inputs": inputs_key(family, builder_sha, executor_sha, settings), "runner": code_fingerprint("build")}
+    return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
+
+
+def budget_covers(stored: float | None, stopped: str, wanted: float | None) -> bool:
+    """Whether a failed or unverified outcome reached under budget `stored` stands for a build under budget
+    `wanted`: yes if the budget did not cut it short (every sample was drawn; seeded sampling would draw the
+    same again), or if `wanted` is no larger. A larger budget (or none) retries a build the budget cut short."""
+    if not stopped or stored is None:
+        return True
+    return wanted is not None and wanted <= stored
 
 
 # ---- the pipeline -------------------------------------------------------------------------------------------
@@ -336,7 +396,9 @@ class Builder:
         self.drafting = family.examples[:n]
         self.held_out = family.examples[n:]
         self.key = build_key(family, builder_sha, executor_sha, settings)
-        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out))
+        self.inputs_key = inputs_key(family, builder_sha, executor_sha, settings)
+        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out),
+                                  budget_cpu_minutes=settings.budget_cpu_minutes, runner=code_fingerprint("build"))
         self._seed = settings.seed
 
     # -- accounting
@@ -449,7 +511,7 @@ class Builder:
                 fb = f"{call} failed: {res.message}"
                 if res.error_kind == "timeout":
                     fb += " (it ran too long: make sure every loop ends)"
-            elif not answers_match(ex.answer, res.value):
+            elif not answers_match(ex.answer, res.value, self.family.rel_tol):
                 fb = f"{call} must return {ex.answer!r} but returned {res.value!r}."
             else:
                 cand.draft_ok += 1
@@ -510,9 +572,20 @@ class Builder:
             fills.append(filled)
         return fills
 
+    def draft_checks(self, code: str, shape: ShapeCandidate) -> list[ExampleCheck]:
+        """What the tool returns on each drafting example, as it returned it (not a copy of the expected
+        answer), so a stored tool's record shows its own results."""
+        checks = []
+        for e, a in zip(self.drafting, shape.objects):
+            res = self.sandbox.run(code, a)
+            good = res.status == "ok" and answers_match(e.answer, res.value, self.family.rel_tol)
+            checks.append(ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
+                                       got=res.value if res.status == "ok" else None, ok=good,
+                                       error=None if res.status == "ok" else res.message))
+        return checks
+
     def verify(self, cand: Candidate, shape: ShapeCandidate, fills: list[Filled]) -> None:
-        checks = [ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
-                               got=e.answer, ok=True) for e, a in zip(self.drafting, shape.objects)]
+        checks = self.draft_checks(cand.code, shape)
         ok = 0
         for ex, filled in zip(self.held_out, fills):
             if filled.arguments is None:
@@ -520,7 +593,7 @@ class Builder:
                                            ok=False, error=filled.error))
                 continue
             res = self.sandbox.run(cand.code, filled.arguments)
-            good = res.status == "ok" and answers_match(ex.answer, res.value)
+            good = res.status == "ok" and answers_match(ex.answer, res.value, self.family.rel_tol)
             ok += good
             checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
                                        arguments=filled.arguments, got=res.value if res.status == "ok" else None,
@@ -583,23 +656,79 @@ def _dedupe(cands: list[Candidate]) -> list[Candidate]:
     return out
 
 
+def _tool(b: Builder, family: Family, cand: Candidate, card: Card, report: BuildReport, builder: ChatModel,
+          executor: ChatModel) -> Tool:
+    settings = b.settings
+    return Tool(key=b.key, name=family.name, description=card.description, code=cand.code, card=card,
+                verified=report.verified, held_out_score=cand.score, checks=cand.checks,
+                provenance=Provenance(builder_model=getattr(builder, "name", "?"), builder_sha256=b.builder_sha,
+                                      executor_model=getattr(executor, "name", "?"), executor_sha256=b.executor_sha,
+                                      template_hashes=prompts.template_hash(*TEMPLATES),
+                                      settings=settings.model_dump(), family_file=family.source,
+                                      examples_sha256=hashlib.sha256(json.dumps(
+                                          [e.model_dump(exclude={"line"}) for e in family.examples], sort_keys=True
+                                      ).encode()).hexdigest(), strategy=cand.strategy,
+                                      runner=code_fingerprint("build"), inputs_key=b.inputs_key),
+                report=report.model_dump())
+
+
+def reverify(b: Builder, old: Tool) -> Candidate | None:
+    """Check a verified tool of an older runner again with this runner (drafting examples in the sandbox,
+    held-out examples filled by the executor): the candidate with its new checks, or None if its card does
+    not match the family's drafting examples."""
+    if [d.question for d in old.card.demos] != [e.question for e in b.drafting]:
+        return None
+    shape = ShapeCandidate(objects=[d.arguments for d in old.card.demos], problems=[], schema=old.card.schema_)
+    cand = Candidate(strategy=old.provenance.strategy, code=old.code, messages=[], reply="")
+    b.progress("verify", f"checking '{old.name}' (built by runner {old.provenance.runner or 'of unknown version'}) "
+                         f"with this runner")
+    b.verify(cand, shape, b.fill_held_out(old.card))
+    if not all(c.ok for c in cand.checks if c.split == "draft"):
+        cand.score = 0.0
+    return cand
+
+
 def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: Any, store: ToolStore,
           settings: BuildSettings, builder_sha: str = "", executor_sha: str = "", force: bool = False,
           progress: Progress | None = None, trace: Trace | None = None) -> tuple[Tool | None, BuildReport]:
-    """Build (or fetch from the tool store) the tool for a family; a failed build is stored unverified."""
+    """Build (or fetch from the tool store) the tool for a family; a failed build is stored unverified.
+
+    Reuse: the same build (inputs and runner code) verified before is returned whatever the budget; one that
+    failed is returned unless a budget larger than the one that cut it short is asked for. A verified tool
+    from the same inputs but an older runner is checked again and reused only if it still verifies."""
     b = Builder(family, builder=builder, executor=executor, sandbox=sandbox, settings=settings,
                 builder_sha=builder_sha, executor_sha=executor_sha, progress=progress, trace=trace)
+    wanted = settings.budget_cpu_minutes
     if not force:
         cached = store.by_key(b.key)
         if cached is not None:
             report = BuildReport.model_validate(cached.report)
-            report.cache_hit = True
-            return cached, report
+            if cached.verified or budget_covers(report.budget_cpu_minutes, report.stopped, wanted):
+                report.cache_hit = True
+                return cached, report
         failed = store.failed(b.key)
         if failed is not None:
             report = BuildReport.model_validate_json(failed)
-            report.cache_hit = True
-            return None, report
+            if budget_covers(report.budget_cpu_minutes, report.stopped, wanted):
+                report.cache_hit = True
+                return None, report
+        old = store.get(family.name, missing_ok=True)
+        if (old is not None and old.verified and old.key != b.key and old.provenance.inputs_key == b.inputs_key):
+            try:
+                cand = reverify(b, old)
+            except BudgetExhausted as exc:
+                b.report.stopped, cand = str(exc), None
+            if cand is not None and cand.score >= settings.min_score:
+                report = b.report
+                report.verified, report.held_out_score, report.strategy = True, cand.score, cand.strategy
+                report.reused = (f"tool built by runner {old.provenance.runner or '(unknown)'} verified again by "
+                                 f"runner {code_fingerprint('build')}")
+                report.steps["card"].tried = report.steps["card"].passed = 1
+                tool = _tool(b, family, cand, old.card, report, builder, executor)
+                store.put(tool)
+                return tool, report
+            b.report.failures.append(f"the stored tool of an older runner no longer verifies "
+                                     f"(held-out {cand.score if cand else 0:.2f}); building afresh")
     cand, shape, card = b.run()
     report = b.report
     if cand is None or shape is None or card is None:
@@ -610,15 +739,6 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
     report.held_out_score = cand.score
     report.strategy = cand.strategy
     report.steps["card"].tried = report.steps["card"].passed = 1
-    tool = Tool(key=b.key, name=family.name, description=card.description, code=cand.code, card=card,
-                verified=report.verified, held_out_score=cand.score, checks=cand.checks,
-                provenance=Provenance(builder_model=getattr(builder, "name", "?"), builder_sha256=builder_sha,
-                                      executor_model=getattr(executor, "name", "?"), executor_sha256=executor_sha,
-                                      template_hashes=prompts.template_hash(*TEMPLATES),
-                                      settings=settings.model_dump(), family_file=family.source,
-                                      examples_sha256=hashlib.sha256(json.dumps(
-                                          [e.model_dump(exclude={"line"}) for e in family.examples], sort_keys=True
-                                      ).encode()).hexdigest(), strategy=cand.strategy),
-                report=report.model_dump())
+    tool = _tool(b, family, cand, card, report, builder, executor)
     store.put(tool)
     return tool, report

@@ -301,9 +301,13 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
         if not report.verified:
             for f in report.failures[-5:]:
                 print_cut(out, f"  - {' '.join(f.split())}")
+    if report.reused:
+        out.print(f"reused: {report.reused}", highlight=False)
     if not report.verified:
         if report.cache_hit:
-            err.print("(this exact build failed before; `--force` tries again, or change --seed or --samples)")
+            more = (f", or give a --budget-cpu-min above {report.budget_cpu_minutes:g}"
+                    if report.stopped and report.budget_cpu_minutes is not None else "")
+            err.print(f"(this exact build failed before; `--force` tries again{more}, or change --seed or --samples)")
         raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
                                + (" (an unverified best attempt is kept: `jigwright tools review " + family.name + "`)"
                                   if tool else ""))
@@ -312,27 +316,39 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
 @tools_app.command("list")
 def tools_list(as_json: bool = typer.Option(False, "--json", help="JSON on stdout.")) -> None:
     """Tools in the tool store, one line each. The full description is in `tools review`."""
+    from .fingerprint import code_fingerprint
     from .store import ToolStore
 
     with ToolStore() as store:
         tools = list(store.tools())
+        warnings = list(store.warnings)
+    for w in warnings:
+        err.print(f"[yellow]warning:[/yellow] {w}", highlight=False, soft_wrap=True)
+    current = code_fingerprint("build")
     if as_json:
         out.print_json(json.dumps([{"name": t.name, "verified": t.verified, "held_out_score": t.held_out_score,
                                     "strategy": t.provenance.strategy, "created": t.provenance.created,
-                                    "description": t.description, "key": t.key} for t in tools]))
+                                    "description": t.description, "key": t.key, "runner": t.provenance.runner,
+                                    "older_runner": t.provenance.runner != current} for t in tools]))
         return
     t = screen_table("Tool store")
     for c in ("name", "verified", "held-out", "built"):
         t.add_column(c, no_wrap=True, justify="right" if c == "held-out" else "left")
     t.add_column("description")
+    older = 0
     for tool in tools:
-        t.add_row(tool.name, "yes" if tool.verified else "[red]no[/red]", f"{tool.held_out_score:.2f}",
-                  tool.provenance.created[:10], one_line(tool.description))
+        old = tool.provenance.runner != current
+        older += old
+        t.add_row(tool.name + (" [yellow]*[/yellow]" if old else ""), "yes" if tool.verified else "[red]no[/red]",
+                  f"{tool.held_out_score:.2f}", tool.provenance.created[:10], one_line(tool.description))
     if tools:
         t.caption = "built: UTC date; full descriptions, code and checks: jigwright tools review NAME"
     else:
         t.caption = "no tools yet: jigwright build FAMILY/examples.jsonl makes one"
     out.print(t)
+    if older:
+        out.print(f"[yellow]*[/yellow] built by an older runner ({older}); this is {current}: `jigwright build` "
+                  f"checks such a tool again and reuses it only if it still verifies", highlight=False)
 
 
 @tools_app.command("review")
@@ -429,12 +445,13 @@ class _RunProgress:
         self.bar.console.print(f"[yellow]{text}[/yellow]", highlight=False)
 
 
-def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = True):
+def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = True, retry_failed: bool = False):
     from .runloop import RunOptions
 
     if fallback not in ("builder", "executor", "none"):
         raise typer.BadParameter("--fallback must be builder, executor or none")
-    return RunOptions(fallback=fallback, min_confidence=min_confidence, seed=seed, group=group)
+    return RunOptions(fallback=fallback, min_confidence=min_confidence, seed=seed, group=group,
+                      retry_failed=retry_failed)
 
 
 def _report_table(report) -> Table:
@@ -448,6 +465,10 @@ def _report_table(report) -> Table:
     return t
 
 
+def _kinds(kinds: dict) -> str:
+    return (": " + ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in kinds.items())) if kinds else ""
+
+
 def _print_report(report, console: Console) -> None:
     console.print(_report_table(report))
     sv = report.savings
@@ -455,7 +476,9 @@ def _print_report(report, console: Console) -> None:
     console.print(
         f"queue {report.queue} → answers {report.out}\n"
         f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
-        f"input errors {report.errors}\n"
+        f"errors {report.errors}{_kinds(report.error_kinds)}\n"
+        + (f"superseded {report.superseded}: earlier records of tasks answered again\n" if report.superseded else "")
+        + (f"routes kept from an interrupted run: {report.routes_reused}\n" if report.routes_reused else "")
         + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +
         f"CPU {report.total_cpu_seconds:.1f} s in all: {report.task_cpu_seconds:.1f} s in tasks, "
         f"{report.model_load_cpu_seconds:.1f} s loading models\n"
@@ -483,20 +506,24 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
             expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
+            retry_failed: bool = typer.Option(False, "--retry-failed", help="Answer again the tasks whose newest record failed or is an error."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
     """Answer a queue of questions. Each is routed to a tool whose arguments the executor fills, or else to the
     fallback; one answer record per task.
 
-    Records are appended and flushed one by one; rerunning with the same --out resumes (answered ids are
-    skipped). Blank queue lines are skipped; a bad line (not JSON, no question, duplicate id) gets an error
-    record with its line number (id line-N when it has none). Ctrl-C once: finish the current task and stop;
-    twice: stop at once. Either way the answers file stays valid JSONL.
+    Records are appended and flushed one by one; rerunning with the same --out resumes: a task with a record
+    of the same id and question is skipped, an edited question is answered again (the newest record of an id
+    is its answer), and --retry-failed answers failed tasks again. Blank queue lines are skipped; a bad line
+    (not JSON, not UTF-8, no question, duplicate id) gets an error record with its line number (id line-N when
+    it has none); a task that fails in any other way (too long for the context, a model or sandbox error) gets
+    an error record of its own and the queue goes on. Ctrl-C once: finish the current task and stop; twice:
+    stop at once. Either way the answers file stays valid JSONL.
     """
     from .errors import InputError
     from .runloop import default_out, local_setup, run_queue
 
     caution()
-    options = _run_options(fallback, min_confidence, seed, group)
+    options = _run_options(fallback, min_confidence, seed, group, retry_failed)
     target = default_out(queue) if out_file is None else (None if out_file == "-" else Path(out_file))
     if out_file is None and target is None:
         raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
@@ -556,10 +583,13 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
 
     caution()
     options = _run_options(fallback, min_confidence, seed)
-    rec = ask(question, options, local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads))
+    setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
+    for note in setup.notes:
+        err.print(f"[yellow]{note}[/yellow]", highlight=False, soft_wrap=True)
+    rec = ask(question, options, setup)
     if as_json:
         out.print_json(rec.model_dump_json())
-        return
+        sys.exit(1 if rec.status == "error" else 0)
     from rich.markup import escape
 
     conf = f" (confidence {rec.confidence:.2f})" if rec.confidence is not None else ""
@@ -577,6 +607,8 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
               f"{rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
               f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
               highlight=False, soft_wrap=True)
+    if rec.status == "error":
+        sys.exit(1)
 
 
 @app.command("eval")
@@ -609,6 +641,8 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
         return
     for table in eval_tables(report):
         out.print(table)
+    if report.pooled_note:
+        out.print(report.pooled_note, highlight=False)
     for b in report.builds:
         where = "from the tool store" if b.cache_hit else "built now"
         state = "no tool" if b.tool is None else ("verified" if b.verified else "[yellow]NOT verified[/yellow]")

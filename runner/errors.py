@@ -73,3 +73,30 @@ class ModelRuntimeError(JigwrightError):
     """llama.cpp failed to load or run a model."""
 
     exit_code = 13
+
+
+class OutputError(JigwrightError):
+    """An output file (the answers file) could not be written: disk full, read-only, gone."""
+
+    exit_code = 14
+
+
+class ContextOverflowError(JigwrightError):
+    """A prompt (with room for its reply) does not fit the model's context; nothing was sent."""
+
+    exit_code = 15
+
+    def __init__(self, message: str, *, tokens: int, limit: int):
+        super().__init__(message)
+        self.tokens = tokens
+        self.limit = limit
+
+
+class StoreError(JigwrightError):
+    """The tool store's files cannot be read (a damaged SQLite database, say): folder and how to recover."""
+
+    exit_code = 16
+
+
+class ModelLoadError(ModelRuntimeError):
+    """llama.cpp could not load a model file at all (every task would fail the same way)."""

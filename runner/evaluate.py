@@ -29,7 +29,8 @@ from pydantic import BaseModel, Field, computed_field
 from . import build as build_mod
 from . import answerform, prompts, settings
 from .errors import InputError
-from .execute import EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match
+from .execute import REL_TOL, EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, fill_start
+from .fingerprint import code_fingerprint
 from .llm import ChatModel, Message
 from .meter import physical_cores
 from .runloop import RunOptions, quantile
@@ -88,10 +89,7 @@ def load_family_dir(path: Path) -> FamilyDir:
     if not test.is_file():
         raise InputError(f"{path}: no test.jsonl (the held-out tasks with answers that eval needs)")
     family = build_mod.load_family(path / "examples.jsonl")
-    try:
-        lines = test.read_text(encoding="utf-8").splitlines()
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{test}: cannot read: {exc}") from None
+    lines = build_mod.read_lines(test)
     return FamilyDir(path=path, family=family, tasks=parse_tasks(str(test), lines))
 
 
@@ -193,6 +191,7 @@ class TaskResult(BaseModel):
     completion_tokens: int = 0
     cached_tokens: int = 0
     forced_tokens: int = 0  # of the completion tokens, those the schema forced (appended in batches)
+    fill: list[str] = Field(default_factory=list, description="how each fill was asked (free, schema, ...)")
 
     @property
     def cpu_seconds(self) -> float:
@@ -283,6 +282,7 @@ class EvalReport(BaseModel):
     model_load_cpu_seconds: float = 0.0
     cache: str = ""
     files: dict[str, str] = Field(default_factory=dict)
+    pooled_note: str = Field("", description="which families the pooled rows leave out, and why")
 
 
 def machine() -> Machine:
@@ -367,7 +367,7 @@ def answer_split(executor: ChatModel, tool: Tool, task: EvalTask, sandbox: Any, 
                       arguments=out.arguments, model_cpu=u.cpu_seconds, tool_cpu=out.tool_cpu_seconds,
                       wall_seconds=u.wall_seconds + out.tool_wall_seconds, prompt_tokens=u.prompt_tokens,
                       completion_tokens=u.completion_tokens, cached_tokens=u.cached_tokens,
-                      forced_tokens=u.forced_tokens)
+                      forced_tokens=u.forced_tokens, fill=out.fill_modes)
 
 
 def _sha(obj: Any) -> str:
@@ -381,11 +381,12 @@ def tool_sha(tool: Tool) -> str:
 
 def result_key(method: str, model_sha: str, family: str, task: EvalTask, template_hash: str, context: str,
                knobs: dict[str, Any]) -> str:
-    """Cache key of one task result: method, model SHA-256, task (id and question), prompt template hash, and
-    what else shapes the prompt (the tool, or the few-shot examples) and the call (token limit, seed)."""
+    """Cache key of one task result: method, model SHA-256, task (id and question), prompt template hash,
+    what else shapes the prompt (the tool, or the few-shot examples) and the call (token limit, seed, how the
+    fill starts), and the fingerprint of the runner code that computes and checks answers."""
     return "task:" + _sha({"method": method, "model": model_sha, "family": family, "task": task.id,
                            "question": task.question, "template": template_hash, "context": context,
-                           "knobs": knobs})[:40]
+                           "knobs": knobs, "runner": code_fingerprint("eval")})[:40]
 
 
 class ResultCache:
@@ -407,8 +408,12 @@ class ResultCache:
         self.close()
 
     def get(self, key: str) -> TaskResult | None:
+        """A stored result, or None when there is none or it no longer validates (it is computed again)."""
         raw = self._cache.get(key)
-        return TaskResult.model_validate_json(raw) if raw else None
+        try:
+            return TaskResult.model_validate_json(raw) if raw else None
+        except ValueError:
+            return None
 
     def put(self, key: str, result: TaskResult) -> None:
         self._cache.set(key, result.model_dump_json())
@@ -536,9 +541,11 @@ class Evaluator:
             if tool is None:
                 results.append(TaskResult(id=task.id, answered=False, error="no tool: the build produced none"))
             else:
+                # the fill's start ("free" or "schema" after an earlier miss in this process) changes the result
                 key = result_key("split", self.setup.executor_sha, fam.name, task, template, tool_sha(tool),
                                  {"seed": MODEL_SEED, "retries": self.options.retries,
-                                  "retry_temperature": self.options.retry_temperature, "fill": FILL_METHOD})
+                                  "retry_temperature": self.options.retry_temperature, "fill": FILL_METHOD,
+                                  "fill_start": fill_start(tool.card)})
                 r, new = self._cached_or_run(key, lambda: answer_split(self.setup.executor, tool, task,
                                                                        self.sandbox, self.options))
                 results.append(r)
@@ -573,10 +580,11 @@ class Evaluator:
         return b if DIRECT[method].role == "builder" else e
 
 
-def score(tasks: list[EvalTask], results: list[TaskResult]) -> list[ScoredTask]:
-    """Each result next to its task's known answer (pure)."""
+def score(tasks: list[EvalTask], results: list[TaskResult], rel_tol: float = REL_TOL) -> list[ScoredTask]:
+    """Each result next to its task's known answer (pure); floats within the family's tolerance."""
     return [ScoredTask(**r.model_dump(), expected=t.answer, cpu=round(r.cpu_seconds, 6),
-                       correct=r.answered and answers_match(t.answer, r.answer)) for t, r in zip(tasks, results)]
+                       correct=r.answered and answers_match(t.answer, r.answer, rel_tol))
+            for t, r in zip(tasks, results)]
 
 
 def make_row(family: str, method: str, model: str, scored: list[ScoredTask], computed: int = 0) -> MethodRow:
@@ -615,23 +623,34 @@ def add_break_even(rows: list[MethodRow]) -> None:
                 row.break_even[other.method] = break_even(row.build_cpu, row.cpu_mean, other.cpu_mean)
 
 
-def pooled_rows(rows: list[MethodRow], methods: list[str], builds: list[BuildInfo]) -> list[MethodRow]:
-    """Each method over all families together (tasks pooled; the split's build costs summed)."""
+def pooled_rows(rows: list[MethodRow], methods: list[str], builds: list[BuildInfo]) -> tuple[list[MethodRow], str]:
+    """Each method over the families together (tasks pooled; the split's build costs summed), and a line
+    saying what was left out. When the split ran, only families it has a tool for are pooled, for every
+    method: a family without a tool has no split cost per task, and pooling it would make the split look
+    cheaper than it is (its own row still counts those tasks as failed)."""
+    with_tool = {b.family for b in builds if b.tool is not None}
+    left = [b.family for b in builds if b.tool is None]
+    keep = (lambda fam: fam in with_tool) if builds else (lambda fam: True)
     out = []
     for method in methods:
-        mine = [r for r in rows if r.method == method]
+        mine = [r for r in rows if r.method == method and keep(r.family)]
         if not mine:
             continue
         row = make_row(ALL, method, mine[0].model, [s for r in mine for s in r.results],
                        computed=sum(r.computed for r in mine))
         row.results = []
         if method == "split":
-            row.build_cpu = round(sum(b.cpu_seconds for b in builds), 3)
-            bad = [b.family for b in builds if b.tool is None or not b.verified]
+            row.build_cpu = round(sum(b.cpu_seconds for b in builds if b.tool is not None), 3)
+            bad = [b.family for b in builds if b.tool is not None and not b.verified]
             if bad:
-                row.note, row.flagged = f"includes families without a verified tool: {', '.join(bad)}", True
+                row.note, row.flagged = f"includes families with an UNVERIFIED tool: {', '.join(bad)}", True
         out.append(row)
-    return out
+    note = ""
+    if left:
+        tasks = sum(r.tasks for r in rows if r.method == "split" and r.family in left)
+        note = (f"'{ALL}' pools the {len(with_tool)} families with a tool; left out: {len(left)} without a tool "
+                f"({', '.join(left)}; {tasks} tasks per method, failed in the split's own rows)")
+    return out, note
 
 
 def evaluate(families: list[FamilyDir], setup: EvalSetup, *, methods: list[str], n: int = 20, seed: int = 0,
@@ -659,17 +678,21 @@ def evaluate(families: list[FamilyDir], setup: EvalSetup, *, methods: list[str],
                 if method == "split":
                     results, computed, info, _ = ev.run_split(fam, tasks)
                     builds.append(info)
-                    row = make_row(fam.name, method, ev.model_name(method), score(tasks, results), computed)
+                    row = make_row(fam.name, method, ev.model_name(method),
+                                   score(tasks, results, fam.family.rel_tol), computed)
                     row.build_cpu = info.cpu_seconds
                     row.note, row.flagged = split_note(info)
                 else:
                     results, computed = ev.run_direct(fam, method, tasks)
-                    row = make_row(fam.name, method, ev.model_name(method), score(tasks, results), computed)
+                    row = make_row(fam.name, method, ev.model_name(method),
+                                   score(tasks, results, fam.family.rel_tol), computed)
                     if row.unanswered:
                         row.note = f"{row.unanswered} without an answer"
                 rows.append(row)
+        pooled_note = ""
         if len(families) > 1:
-            rows.extend(pooled_rows(rows, methods, builds))
+            pooled, pooled_note = pooled_rows(rows, methods, builds)
+            rows.extend(pooled)
         add_break_even(rows)
         report = EvalReport(
             created=datetime.now(timezone.utc).isoformat(timespec="seconds"), machine=machine(), n=n, seed=seed,
@@ -678,7 +701,7 @@ def evaluate(families: list[FamilyDir], setup: EvalSetup, *, methods: list[str],
             families=[f.name for f in families], builds=builds, rows=rows, computed=ev.computed, reused=ev.reused,
             model_load_cpu_seconds=round(sum(m.load_usage.cpu_seconds for m in setup.opened
                                              if getattr(m, "load_usage", None) is not None), 3),
-            cache=str(cache_dir))
+            cache=str(cache_dir), pooled_note=pooled_note)
     write_outputs(report, out_dir)
     return report
 
@@ -743,6 +766,8 @@ def markdown(report: EvalReport) -> str:
         "|" + "|".join("---" if i < 3 or c == "note" else "---:" for i, c in enumerate(cols)) + "|",
     ]
     lines += ["| " + " | ".join(esc(c) for c in row) + " |" for row in table_rows(report)]
+    if report.pooled_note:
+        lines += ["", report.pooled_note + "."]
     steps = step_rows(report)
     if steps:
         lines += ["", "CPU s per task of the split by step, and the executor's generated tokens per task:", "",
@@ -764,7 +789,7 @@ def markdown(report: EvalReport) -> str:
         "- Build CPU s: builder and executor CPU of the build, from its stored report (also when the tool came "
         "from the tool store). Break-even: the number of tasks after which build + split per task costs less CPU "
         "than the direct method; \"never\" when the split is not cheaper per task. *all families*: the tasks "
-        "of every family pooled, the split's build costs summed.",
+        "of every family the split has a tool for, pooled for each method; the split's build costs summed.",
     ]
     return "\n".join(lines) + "\n"
 

@@ -20,12 +20,14 @@ EXECUTOR_TEMPLATE = "executor_fill.j2"
 
 
 class Filled(BaseModel):
-    """The executor's argument object for one question (or why there is none) and what it cost."""
+    """The executor's argument object for one question (or why there is none), what it cost, and how it was
+    asked: "free" (no grammar), "free, then schema" (the free reply missed) or "schema" (straight away)."""
 
     arguments: dict[str, Any] | None
     error: str | None = None
     usage: Usage = Usage()
     raw: str = ""
+    mode: str = "free"
 
 
 def fill_messages(card: Card, question: str) -> list[Message]:
@@ -75,6 +77,12 @@ def forget_fill_misses() -> None:
     _FREE_MISSED.clear()
 
 
+def fill_start(card: Card) -> str:
+    """How this process will ask for the card's next fill: "free" first, or "schema" after an earlier miss.
+    It changes results, so eval keys hold it."""
+    return "schema" if json.dumps(card.schema_, sort_keys=True) in _FREE_MISSED else "free"
+
+
 def _parse_fill(card: Card, text: str, finish_reason: str) -> tuple[dict[str, Any] | None, str | None]:
     try:
         args = json.loads(text)
@@ -103,41 +111,86 @@ def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, te
         reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card))
         args, error = _parse_fill(card, reply.text, reply.finish_reason)
         if args is not None:
-            return Filled(arguments=args, usage=reply.usage, raw=reply.text)
+            return Filled(arguments=args, usage=reply.usage, raw=reply.text, mode="free")
         _FREE_MISSED.add(schema_key)
         usage = reply.usage
+        mode = "free, then schema"
+    else:
+        mode = "schema"
     reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card),
                        schema=card.schema_)
     args, error = _parse_fill(card, reply.text, reply.finish_reason)
-    return Filled(arguments=args, error=error, usage=usage + reply.usage, raw=reply.text)
+    return Filled(arguments=args, error=error, usage=usage + reply.usage, raw=reply.text, mode=mode)
 
 
 # ---- answers ----------------------------------------------------------------------------------------------
 
 _WORDS = {"yes": "yes", "true": "yes", "valid": "yes", "no": "no", "false": "no", "invalid": "no"}
+# Floats compare within this relative tolerance unless the family's family.toml sets `tolerance`; integers and
+# text compare exactly after normalisation.
+REL_TOL = 1e-9
+_INT = re.compile(r"-?\d+")
+_FLOAT = re.compile(r"-?(\d+\.\d*|\.\d+|\d+(\.\d*)?[eE][-+]?\d+)")
+
+
+def _text(value: Any) -> str:
+    text = re.sub(r"\s+", " ", str(value)).strip().strip(".").strip().casefold()
+    return re.sub(r"^(the|a|an) ", "", text)
 
 
 def normalise(value: Any) -> str:
-    """A canonical text form for comparing answers: case, spacing, articles, trailing dots and number forms
-    do not matter; lists compare element-wise in order."""
+    """A canonical text form of an answer: case, spacing, leading articles, trailing dots and number forms
+    ("158.", "158.0", 158) do not matter; yes/true/valid are one word, as are no/false/invalid; lists join
+    element-wise in order. Floats keep every digit (repr), so text equality is exact."""
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, (int, float)):
-        if isinstance(value, float) and math.isfinite(value) and value == int(value):
+        if isinstance(value, float) and math.isfinite(value) and value == int(value) and abs(value) < 2 ** 53:
             value = int(value)
-        return str(value) if isinstance(value, int) else f"{value:.6g}"
+        return str(value) if isinstance(value, int) else repr(value)
     if isinstance(value, (list, tuple)):
         return ", ".join(normalise(v) for v in value)
     if value is None:
         return ""
-    text = re.sub(r"\s+", " ", str(value)).strip().strip(".").strip().casefold()
-    text = re.sub(r"^(the|a|an) ", "", text)
-    if re.fullmatch(r"-?\d+(\.\d+)?", text):
-        return normalise(float(text))
+    number = as_number(value)
+    if number is not None:
+        return normalise(number)
+    text = _text(value)
     return _WORDS.get(text, text)
 
 
-def answers_match(expected: Any, got: Any) -> bool:
+def as_number(value: Any) -> int | float | None:
+    """The number an answer states (an int or float, or text that is only a number), else None."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, (int, float)):
+        return value
+    if isinstance(value, str):
+        text = _text(value)
+        if _INT.fullmatch(text):
+            return int(text)
+        if _FLOAT.fullmatch(text):
+            return float(text)
+    return None
+
+
+def answers_match(expected: Any, got: Any, rel_tol: float = REL_TOL) -> bool:
+    """Whether `got` is the `expected` answer: integers exactly, floats within `rel_tol` (relative), text and
+    yes/no words exactly after `normalise`, lists element by element in order. A missing answer (None)
+    never matches: not even an expected empty text."""
+    if expected is None or got is None:
+        return False
+    if isinstance(expected, (list, tuple)) and isinstance(got, (list, tuple)):
+        return len(expected) == len(got) and all(answers_match(e, g, rel_tol) for e, g in zip(expected, got))
+    if isinstance(expected, (list, tuple)) or isinstance(got, (list, tuple)):
+        return normalise(expected) == normalise(got)  # a list written out as text ("Ana, Bo")
+    a, b = as_number(expected), as_number(got)
+    if a is not None and b is not None:
+        if isinstance(a, int) and isinstance(b, int):
+            return a == b
+        if not (math.isfinite(a) and math.isfinite(b)):
+            return a == b
+        return a == b or math.isclose(a, b, rel_tol=rel_tol, abs_tol=0.0)
     return normalise(expected) == normalise(got)
 
 
@@ -149,6 +202,7 @@ def extract_answer(text: str) -> str:
 # ---- calling the tool, with one retry; and the direct answer (the fallback) ------------------------------
 
 DIRECT_TEMPLATE = "direct_answer.j2"
+DIRECT_MAX_TOKENS = 192  # the fallback's reply budget: short working, then 'Answer: ...'
 
 
 class ToolAnswer(BaseModel):
@@ -163,6 +217,7 @@ class ToolAnswer(BaseModel):
     usage: Usage = Usage()
     tool_cpu_seconds: float = 0.0
     tool_wall_seconds: float = 0.0
+    fill_modes: list[str] = []
 
 
 def answer_with_tool(model: ChatModel, tool: Tool, question: str, sandbox: Any, *, seed: int,
@@ -171,10 +226,12 @@ def answer_with_tool(model: ChatModel, tool: Tool, question: str, sandbox: Any, 
     again with the next seed at `retry_temperature`, up to `retries` more times."""
     usage, tool_cpu, tool_wall, error = Usage(), 0.0, 0.0, None
     arguments: dict[str, Any] | None = None
+    modes: list[str] = []
     for attempt in range(retries + 1):
         filled = fill_arguments(model, tool.card, question, seed=seed + attempt,
                                 temperature=0.0 if attempt == 0 else retry_temperature)
         usage = usage + filled.usage
+        modes.append(filled.mode)
         if filled.arguments is None:
             error = f"attempt {attempt + 1}: {filled.error}"
             continue
@@ -184,11 +241,11 @@ def answer_with_tool(model: ChatModel, tool: Tool, question: str, sandbox: Any, 
         tool_wall += result.wall_seconds
         if result.ok and result.value is not None:
             return ToolAnswer(ok=True, value=result.value, arguments=arguments, attempts=attempt + 1, usage=usage,
-                              tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall)
+                              tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall, fill_modes=modes)
         why = f"{result.error_kind}: {result.message}" if not result.ok else "the tool returned nothing"
         error = f"attempt {attempt + 1}: tool {tool.name} failed ({why})"
     return ToolAnswer(ok=False, arguments=arguments, error=error, attempts=retries + 1, usage=usage,
-                      tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall)
+                      tool_cpu_seconds=tool_cpu, tool_wall_seconds=tool_wall, fill_modes=modes)
 
 
 class DirectAnswer(BaseModel):
@@ -204,7 +261,7 @@ def direct_messages(question: str) -> list[Message]:
     return [{"role": "system", "content": prompts.render(DIRECT_TEMPLATE)}, {"role": "user", "content": question}]
 
 
-def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = 192) -> DirectAnswer:
+def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: int = DIRECT_MAX_TOKENS) -> DirectAnswer:
     """Ask `model` for a short worked answer ending in 'Answer: ...' and cut out the answer the question asks
     for (answerform's rules); a reply cut off by the token limit before any 'Answer:' gives an empty answer (not
     a fragment of working)."""
@@ -214,6 +271,7 @@ def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: i
     return DirectAnswer(answer=answerform.direct_answer(question, reply.text), text=reply.text, usage=reply.usage)
 
 
-__all__ = ["Filled", "fill_messages", "fill_arguments", "forget_fill_misses", "schema_problem", "normalise", "answers_match",
+__all__ = ["Filled", "fill_messages", "fill_arguments", "fill_start", "forget_fill_misses", "schema_problem", "normalise",
+           "answers_match", "as_number", "REL_TOL", "DIRECT_MAX_TOKENS",
            "extract_answer", "token_budget", "Tool", "ToolAnswer", "answer_with_tool", "DirectAnswer",
            "direct_messages", "answer_directly"]

@@ -11,7 +11,7 @@ from typing import Any, Protocol
 from pydantic import BaseModel
 
 from . import models, settings
-from .errors import ModelRuntimeError
+from .errors import ContextOverflowError, ModelLoadError, ModelRuntimeError
 from .meter import Stopwatch, Usage, physical_cores
 from .settings import ModelSpec
 
@@ -37,6 +37,21 @@ class ChatModel(Protocol):
 
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
              stop: list[str] | None = None, schema: dict | None = None) -> Reply: ...
+
+
+def check_fits(model_name: str, prompt_tokens: int, max_tokens: int, n_ctx: int) -> None:
+    """Raise ContextOverflowError unless a prompt of `prompt_tokens` plus a reply of up to `max_tokens` fits in
+    `n_ctx` tokens (checked before anything is sent, so a long prompt fails fast and clearly)."""
+    if prompt_tokens + max_tokens > n_ctx:
+        raise ContextOverflowError(
+            f"the prompt is {prompt_tokens:,} tokens and its reply may take {max_tokens:,}: more than the "
+            f"{n_ctx:,}-token context of model '{model_name}'", tokens=prompt_tokens, limit=n_ctx)
+
+
+def prompt_size(model: Any, messages: list[Message]) -> int | None:
+    """Tokens `messages` take in `model`'s prompt, when the model can tell (None otherwise)."""
+    count = getattr(model, "prompt_tokens", None)
+    return count(messages) if callable(count) else None
 
 
 def _common_prefix(a: list[int], b: list[int]) -> int:
@@ -82,7 +97,7 @@ class LocalModel:
                 self._llm = Llama(model_path=str(path), n_ctx=self.n_ctx, n_threads=self.n_threads,
                                   n_threads_batch=self.n_threads, verbose=self.verbose, seed=0)
             except (ValueError, RuntimeError) as exc:
-                raise ModelRuntimeError(f"llama.cpp could not load model '{self.name}' from {path}: {exc}") from exc
+                raise ModelLoadError(f"llama.cpp could not load model '{self.name}' from {path}: {exc}") from exc
         self.load_usage = Usage(wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds)
         return self
 
@@ -98,11 +113,40 @@ class LocalModel:
         self.load()
         return self._llm.tokenize(text.encode("utf-8"), add_bos=False, special=True)
 
+    def _chat_formatter(self) -> Any:
+        """The model's own chat template (from the GGUF metadata), as llama-cpp-python applies it."""
+        if self._formatter is None:
+            from llama_cpp.llama_chat_format import Jinja2ChatFormatter
+
+            llm = self._llm
+            template = llm.metadata.get("tokenizer.chat_template")
+            if not template:
+                return None
+            eos, bos = llm.token_eos(), llm.token_bos()
+            self._formatter = Jinja2ChatFormatter(
+                template=template, eos_token=llm._model.token_get_text(eos) if eos != -1 else "",
+                bos_token=llm._model.token_get_text(bos) if bos != -1 else "")
+        return self._formatter
+
+    def prompt_tokens(self, messages: list[Message]) -> int:
+        """How many tokens `messages` take once the chat template is applied (what llama.cpp will evaluate)."""
+        self.load()
+        try:
+            formatter = self._chat_formatter()
+        except Exception:  # an unusual template: count the texts and a few tokens per turn instead
+            formatter = None
+        if formatter is not None:
+            text = formatter(messages=messages).prompt
+            return len(self._llm.tokenize(text.encode("utf-8"), add_bos=True, special=True))
+        return sum(len(self.tokenize(m["content"])) + 5 for m in messages) + 3
+
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
              stop: list[str] | None = None, schema: dict | None = None, top_p: float = 0.95,
              top_k: int = 40) -> Reply:
-        """One chat completion with the model's own template; `schema` constrains the reply to JSON that fits it."""
+        """One chat completion with the model's own template; `schema` constrains the reply to JSON that fits it.
+        The prompt is measured first: one that leaves no room for `max_tokens` raises ContextOverflowError."""
         self.load()
+        check_fits(self.name, self.prompt_tokens(messages), max_tokens, self.n_ctx)
         with self._lock:
             llm = self._llm
             before = list(llm._input_ids[: llm.n_tokens])
@@ -185,4 +229,4 @@ def open_model(role: str, name: str | None = None, *, verbose: bool = False) -> 
     return _OPEN[spec.name]
 
 
-__all__ = ["ChatModel", "LocalModel", "Reply", "open_model"]
+__all__ = ["ChatModel", "LocalModel", "Reply", "check_fits", "open_model", "prompt_size"]

@@ -6,18 +6,28 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import dataclass
 from typing import Any
 
 from pydantic import BaseModel
 
 from . import prompts
-from .llm import ChatModel, LocalModel, Message
+from .errors import ContextOverflowError
+from .llm import ChatModel, LocalModel, Message, prompt_size
 from .meter import Stopwatch, Usage
+from .shortlist import shortlist
 from .tools import Card
 
 ROUTER_TEMPLATE = "router.j2"
 ROUTER_NONE_TEMPLATE = "router_none.j2"
 NONE = "none"
+# The most tools the router is shown when their cards do not all fit the context (with two sample tools among
+# 200 generated cards the largest shortlisted prompt was 1,114 of 4,096 tokens: bench/route_budget.py), and the
+# share of the best BM25+ score a card needs to be shown. With every card within 8 shown, the 0.5B router
+# sent a departures question to none when 7 unrelated cards sharing one word ("sail") stood beside it
+# (scores 116 against 4.3); cards under a tenth of the best are that kind of chance match.
+SHORTLIST_SIZE = 8
+SHORTLIST_FLOOR = 0.1
 
 
 class Route(BaseModel):
@@ -30,6 +40,8 @@ class Route(BaseModel):
     usage: Usage = Usage()
     raw: str = ""
     note: str | None = None
+    shortlist: list[str] | None = None  # the tools the router was shown when not all cards fit
+    prompt_tokens: int | None = None  # the routing prompt's size, measured before it was sent
 
 
 def router_names(cards: list[Card]) -> list[str]:
@@ -75,31 +87,108 @@ def stable_cards(cards: list[Card]) -> list[Card]:
     return sorted(cards, key=lambda c: c.name)
 
 
+def reply_budget(cards: list[Card]) -> int:
+    """Tokens the router's reply may take: the longest name, quoted, with a little room."""
+    return max(len(n) for n in router_names(cards)) + 8
+
+
+@dataclass
+class Fitted:
+    """The router prompt for one question: the cards shown, the messages and their measured size."""
+
+    cards: list[Card]
+    messages: list[Message]
+    tokens: int | None
+    shortlisted: bool
+
+
+_ALL_CARDS_SIZE: dict[tuple[int, str], int] = {}
+
+
+def _all_cards_size(model: ChatModel, cards: list[Card], demos: int) -> int:
+    """Tokens of the router prompt with every card and an empty question, remembered per model and card set
+    (tokenizing 200 cards for every question cost more than routing it)."""
+    import hashlib
+
+    ident = hashlib.sha256(json.dumps([[c.name, c.description, [d.question for d in c.demos]] for c in cards])
+                           .encode("utf-8", "surrogatepass")).hexdigest() + f":{demos}"
+    key = (id(model), ident)
+    if key not in _ALL_CARDS_SIZE:
+        _ALL_CARDS_SIZE[key] = prompt_size(model, router_messages(cards, "", demos)) or 0
+    return _ALL_CARDS_SIZE[key]
+
+
+def fit_prompt(model: ChatModel, cards: list[Card], question: str) -> Fitted:
+    """The router prompt with every card if it fits the model's context (with room for the reply); else the
+    BM25+ shortlist of the cards closest to the question (up to SHORTLIST_SIZE, none under SHORTLIST_FLOOR of
+    the best score), as many of them and with as many demos each as fit. An empty shortlist means no card shares a word with the question. Raises
+    ContextOverflowError when not even one card fits beside the question. A model that cannot measure its
+    prompts gets every card, as before."""
+    n_ctx = getattr(model, "n_ctx", None)
+    cards = stable_cards(cards)
+    demos = demos_per_tool(cards)
+    messages = router_messages(cards, question, demos)
+    if n_ctx is None or prompt_size(model, [{"role": "user", "content": question}]) is None:
+        return Fitted(cards, messages, None, False)
+    # every card: the remembered size of the cards' part plus the question's (a few tokens of slack for
+    # how the two join); measured exactly when it is close
+    estimate = _all_cards_size(model, cards, demos) + (prompt_size(model, [{"role": "user", "content": question}])
+                                                       or 0)
+    if estimate > n_ctx + 64:
+        size = estimate
+    else:
+        size = prompt_size(model, messages) or 0
+        if size + reply_budget(cards) <= n_ctx:
+            return Fitted(cards, messages, size, False)
+    ranked = [r.card for r in shortlist(cards, question, SHORTLIST_SIZE, SHORTLIST_FLOOR)]
+    smallest = size
+    for k in range(len(ranked), 0, -1):
+        chosen = stable_cards(ranked[:k])
+        for demos in (2, 1):
+            msgs = router_messages(chosen, question, demos)
+            size = prompt_size(model, msgs) or 0
+            smallest = min(smallest, size)
+            if size + reply_budget(chosen) <= n_ctx:
+                return Fitted(chosen, msgs, size, True)
+    if not ranked:
+        return Fitted([], [], None, True)
+    raise ContextOverflowError(
+        f"the router's prompt needs {smallest:,} tokens even with one tool: more than the {n_ctx:,}-token context "
+        f"of model '{getattr(model, 'name', '?')}'", tokens=smallest, limit=n_ctx)
+
+
 def route(model: ChatModel, cards: list[Card], question: str, *, seed: int = 0,
           min_confidence: float = 0.0) -> Route:
     """Pick a tool for `question` (greedy, grammar-constrained); below `min_confidence` the pick becomes none.
-    With no cards the answer is none without a model call."""
+    With no cards the answer is none without a model call; so it is when the cards do not fit the context
+    and none of them shares a word with the question."""
     if not cards:
         return Route(tool=NONE, chosen=NONE, note="no verified tools in the tool store")
-    cards = stable_cards(cards)
+    fitted = fit_prompt(model, cards, question)
+    shown = [c.name for c in fitted.cards] if fitted.shortlisted else None
+    if not fitted.cards:
+        return Route(tool=NONE, chosen=NONE, shortlist=[],
+                     note=f"none of the {len(cards)} tools shares a word with the question")
+    cards = fitted.cards
     names = router_names(cards)
-    longest = max(len(n) for n in names)
-    reply = model.chat(router_messages(cards, question, demos_per_tool(cards)), seed=seed, temperature=0.0,
-                       max_tokens=longest + 8, schema=router_schema(cards))
+    reply = model.chat(fitted.messages, seed=seed, temperature=0.0, max_tokens=reply_budget(cards),
+                       schema=router_schema(cards))
     try:
         chosen = json.loads(reply.text)
     except ValueError:
         chosen = reply.text.strip().strip('"')
     if chosen not in names:
-        return Route(tool=NONE, chosen=str(chosen), usage=reply.usage, raw=reply.text,
-                     note=f"router replied {reply.text[:40]!r}, not a tool name")
+        return Route(tool=NONE, chosen=str(chosen), usage=reply.usage, raw=reply.text, shortlist=shown,
+                     prompt_tokens=fitted.tokens, note=f"router replied {reply.text[:40]!r}, not a tool name")
     with Stopwatch() as sw:  # the confidence's few tokens are part of what routing costs
         confidence = grammar_confidence(model, reply.usage.prompt_tokens, names)
     usage = reply.usage + Usage(wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds)
     if confidence is not None and confidence < min_confidence and chosen != NONE:
         return Route(tool=NONE, chosen=chosen, confidence=confidence, usage=usage, raw=reply.text,
+                     shortlist=shown, prompt_tokens=fitted.tokens,
                      note=f"confidence {confidence:.2f} below {min_confidence:.2f}")
-    return Route(tool=chosen, chosen=chosen, confidence=confidence, usage=usage, raw=reply.text)
+    return Route(tool=chosen, chosen=chosen, confidence=confidence, usage=usage, raw=reply.text, shortlist=shown,
+                 prompt_tokens=fitted.tokens)
 
 
 # ---- confidence from a llama.cpp model ---------------------------------------------------------------------

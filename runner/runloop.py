@@ -4,7 +4,11 @@ answer record per task to an append-only file that a rerun resumes. Ends with a 
 
 Order: a whole queue is routed first, then answered grouped by tool, so each llama.cpp prompt prefix (the
 card list while routing, one tool's demos while filling, the fallback prompt at the end) is evaluated once
-and then reused from the KV cache. `--follow` answers line by line instead, as lines arrive."""
+and then reused from the KV cache. `--follow` answers line by line instead, as lines arrive.
+
+Isolation: whatever goes wrong with one task (a question too long for the context, a model or sandbox
+failure, a value that cannot be written) becomes that task's error record and the loop goes on. Route
+decisions of a grouped run are journalled as they are made, so a crash loses at most the task in hand."""
 
 from __future__ import annotations
 
@@ -18,10 +22,13 @@ from typing import Any, Callable, Iterable, Literal, Protocol
 from pydantic import BaseModel, Field
 
 from . import shapecheck
-from .execute import answer_directly, answer_with_tool
-from .llm import ChatModel
+from .errors import (ConfigError, ContextOverflowError, JigwrightError, ModelIntegrityError, ModelLoadError,
+                     ModelMissingError, NotGGUFError, OutputError, UnknownModelError)
+from .execute import DIRECT_MAX_TOKENS, answer_directly, answer_with_tool, direct_messages
+from .llm import ChatModel, prompt_size
 from .meter import Stopwatch, Usage
-from .queue import NONE_ROUTE, AnswerRecord, AnswerWriter, BadLine, Cpu, QueueReader, Resumed, Task, Tokens
+from .queue import (NONE_ROUTE, AnswerRecord, AnswerWriter, BadLine, Cpu, QueueReader, Resumed, RouteJournal, Task,
+                    Tokens)
 from .route import Route, route
 from .tools import Tool
 
@@ -31,6 +38,13 @@ Fallback = Literal["builder", "executor", "none"]
 PRESET_PROMPT_CPU_PER_TOKEN = 2 / 90
 
 
+# Errors that are about the setup, not the task: every later task would fail the same way, so the run stops
+# with the one-line message instead of writing an error record for each task.
+FATAL = (ConfigError, UnknownModelError, ModelMissingError, ModelIntegrityError, NotGGUFError, ModelLoadError,
+         OutputError)
+STAGE_WORDS = {"route": "routing", "tool": "answering with the tool", "fallback": "the fallback"}
+
+
 class RunOptions(BaseModel):
     fallback: Fallback = "builder"
     min_confidence: float = Field(0.0, ge=0.0, le=1.0)
@@ -38,6 +52,7 @@ class RunOptions(BaseModel):
     group: bool = True
     retries: int = Field(1, ge=0)
     retry_temperature: float = 0.3
+    retry_failed: bool = False
 
 
 class Progress(Protocol):
@@ -114,13 +129,13 @@ class _Work:
     error: str | None = None
 
     def record(self, status: str, answer: Any = None, tool_backed: bool = False,
-               reply: str | None = None) -> AnswerRecord:
+               reply: str | None = None, error_kind: str | None = None) -> AnswerRecord:
         r = self.route
         u = self.usage
         return AnswerRecord(
             id=self.task.id, line=self.task.line, question=self.task.question, answer=answer, reply=reply,
             route=r.tool if r else NONE_ROUTE, confidence=r.confidence if r else None, arguments=self.arguments,
-            status=status, tool_backed=tool_backed, error=self.error, attempts=self.attempts,
+            status=status, tool_backed=tool_backed, error=self.error, error_kind=error_kind, attempts=self.attempts,
             cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4), route=round(self.route_cpu, 4),
                     fill=round(self.fill_cpu, 4)),
             wall_seconds=round(u.wall_seconds + self.tool_wall, 4),
@@ -151,13 +166,86 @@ class Engine:
             self._fallback = self._fallback_factory()
         return self._fallback
 
+    @property
+    def router_key(self) -> str:
+        """What decides a route besides the question: the cards, the executor, seed and threshold."""
+        import hashlib
+        import json
+
+        payload = {"cards": sorted((c.model_dump(by_alias=True) for c in self.cards), key=lambda c: c["name"]),
+                   "executor": getattr(self.executor, "name", "?"), "seed": self.options.seed,
+                   "min_confidence": self.options.min_confidence}
+        return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:24]
+
     def route(self, work: _Work) -> None:
-        work.route = route(self.executor, self.cards, work.task.question, seed=self.options.seed,
-                           min_confidence=self.options.min_confidence)
+        try:
+            work.route = route(self.executor, self.cards, work.task.question, seed=self.options.seed,
+                               min_confidence=self.options.min_confidence)
+        except ContextOverflowError as exc:  # the question fits a direct answer but not beside any card
+            work.route = Route(tool=NONE_ROUTE, chosen=NONE_ROUTE, note=f"too long for the router: {exc}")
+            work.error = work.route.note
+            return
         work.usage = work.usage + work.route.usage
         work.route_cpu += work.route.usage.cpu_seconds
         if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
             work.error = work.route.note
+
+    def too_long(self, work: _Work) -> AnswerRecord | None:
+        """A `too_long` error record when the question cannot fit the executor's context even in the smallest
+        prompt any path sends (the direct answer's, with room for its reply); None when it fits or the model
+        cannot measure prompts. No model is called for such a question."""
+        n_ctx = getattr(self.executor, "n_ctx", None)
+        if n_ctx is None:
+            return None
+        need = prompt_size(self.executor, direct_messages(work.task.question))
+        if need is None or need + DIRECT_MAX_TOKENS <= n_ctx:
+            return None
+        alone = prompt_size(self.executor, [{"role": "user", "content": work.task.question}]) or need
+        work.error = (f"the question is about {alone:,} tokens; with the shortest prompt and its reply it needs "
+                      f"{need + DIRECT_MAX_TOKENS:,} of the executor's {n_ctx:,}-token context: shorten or split it")
+        return work.record("error", error_kind="too_long")
+
+    def error_record(self, work: _Work, stage: str, exc: Exception) -> AnswerRecord:
+        """The record of a task whose `stage` raised: status error, a kind, and a one-line message."""
+        text = " ".join(str(exc).split()) or "(no message)"
+        if not isinstance(exc, JigwrightError):
+            text = f"{type(exc).__name__}: {text}"
+        kind = "too_long" if isinstance(exc, ContextOverflowError) else stage
+        earlier = f" (after: {work.error})" if work.error else ""
+        work.error = f"{STAGE_WORDS.get(stage, stage)} failed: {text[:300]}{earlier[:200]}"
+        return work.record("error", error_kind=kind)
+
+    def guarded(self, work: _Work, stage: str, step: Callable[[_Work], Any]) -> tuple[Any, AnswerRecord | None]:
+        """Run one step of a task; an exception becomes the task's error record (setup errors still stop)."""
+        try:
+            return step(work), None
+        except FATAL:
+            raise
+        except Exception as exc:
+            return None, self.error_record(work, stage, exc)
+
+    def try_route(self, work: _Work) -> AnswerRecord | None:
+        """Route one task; an error record when it cannot be (too long, or routing failed), else None."""
+        early, err = self.guarded(work, "route", self.too_long)
+        if err is not None or early is not None:
+            return err or early
+        _, err = self.guarded(work, "route", self.route)
+        return err
+
+    def complete(self, work: _Work) -> AnswerRecord:
+        """Answer a routed task: the tool, else the fallback; any failure is the task's error record."""
+        record, err = self.guarded(work, "tool", self.execute)
+        if err is not None or record is not None:
+            return err or record
+        return self.try_fall_back(work)
+
+    def try_execute(self, work: _Work) -> AnswerRecord | None:
+        record, err = self.guarded(work, "tool", self.execute)
+        return err or record
+
+    def try_fall_back(self, work: _Work) -> AnswerRecord:
+        record, err = self.guarded(work, "fallback", self.fall_back)
+        return err or record
 
     def execute(self, work: _Work) -> AnswerRecord | None:
         """Answer with the routed tool; None when the task needs the fallback (no tool fits, or it failed)."""
@@ -211,10 +299,10 @@ class Engine:
         return work.record("fallback", direct.answer, tool_backed=False, reply=direct.text)
 
     def answer(self, task: Task) -> AnswerRecord:
-        """The whole path for one task (used by `ask` and by `--follow`)."""
+        """The whole path for one task (used by `ask`, `--no-group` and `--follow`); never raises for a
+        failure of this task alone."""
         work = _Work(task)
-        self.route(work)
-        return self.execute(work) or self.fall_back(work)
+        return self.try_route(work) or self.complete(work)
 
 
 # ---- the run report ----------------------------------------------------------------------------------------
@@ -278,6 +366,9 @@ class RunReport(BaseModel):
     savings: CacheSavings
     repaired_bytes: int = 0
     interrupted: bool = False
+    superseded: int = Field(0, description="earlier answer records replaced by this run's (edited question, retry)")
+    routes_reused: int = Field(0, description="route decisions taken from an interrupted run's journal")
+    error_kinds: dict[str, int] = Field(default_factory=dict, description="error records by kind")
 
 
 def quantile(values: list[float], q: float) -> float:
@@ -315,7 +406,7 @@ def prompt_cpu_per_token(records: list[AnswerRecord]) -> tuple[float, str]:
 
 def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int, wall_seconds: float,
               process_cpu_seconds: float, load_cpu_seconds: float, repaired_bytes: int = 0,
-              interrupted: bool = False) -> RunReport:
+              interrupted: bool = False, superseded: int = 0, routes_reused: int = 0) -> RunReport:
     """The run report from this run's records and its measured totals (pure)."""
     answered = [r for r in records if r.status != "error"]
     by_route: dict[str, list[float]] = {}
@@ -342,7 +433,9 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
                              cached_share=round(tokens.cached / tokens.prompt, 3) if tokens.prompt else 0.0,
                              cpu_per_prompt_token=round(rate, 5), rate_source=source,
                              cpu_seconds_saved=round(tokens.cached * rate, 2)),
-        repaired_bytes=repaired_bytes, interrupted=interrupted)
+        repaired_bytes=repaired_bytes, interrupted=interrupted, superseded=superseded, routes_reused=routes_reused,
+        error_kinds={k: sum((r.error_kind or "input") == k for r in records if r.status == "error")
+                     for k in sorted({r.error_kind or "input" for r in records if r.status == "error"})})
 
 
 # ---- the loop ----------------------------------------------------------------------------------------------
@@ -351,30 +444,57 @@ class RunLoop:
     """Drives an Engine over a queue, writing each record as soon as it is final."""
 
     def __init__(self, engine: Engine, writer: AnswerWriter, resumed: Resumed | None = None,
-                 progress: Progress | None = None, stop: StopFlag | None = None):
+                 progress: Progress | None = None, stop: StopFlag | None = None,
+                 journal: RouteJournal | None = None):
         self.engine = engine
         self.writer = writer
         self.resumed = resumed or Resumed([])
         self.progress = progress or _Quiet()
         self.stop = stop or StopFlag()
+        self.journal = journal or RouteJournal(None, "")
         self.records: list[AnswerRecord] = []
         self.skipped = 0
-        self._done_ids = set(self.resumed.done_ids)
+        self.superseded = 0
+        self.routes_reused = 0
+        self._earlier = set(self.resumed.latest)
         self._done_lines = set(self.resumed.done_error_lines)
 
     def _write(self, record: AnswerRecord) -> None:
-        self.writer.write(record)
+        record = self.writer.write(record)
         self.records.append(record)
-        if record.status != "error":
-            self._done_ids.add(record.id)
+        if record.error_kind != "input" and record.id in self._earlier:
+            self.superseded += 1
+            self._earlier.discard(record.id)
         self.progress.advance(record)
 
     def _pending(self, item: Task | BadLine) -> bool:
-        """False for what an earlier run already wrote (counted as skipped)."""
-        done = (item.line in self._done_lines) if isinstance(item, BadLine) else (item.id in self._done_ids)
+        """False for what an earlier run already wrote (counted as skipped): a bad line already reported, or a
+        task with a record of the same id and question (unless it failed and failed tasks are retried)."""
+        if isinstance(item, BadLine):
+            done = item.line in self._done_lines
+        else:
+            done = self.resumed.done(item, self.engine.options.retry_failed)
         if done:
             self.skipped += 1
         return not done
+
+    def _route(self, work: _Work) -> AnswerRecord | None:
+        """Route a task, or take its decision from the journal of an earlier, interrupted run."""
+        kept = self.journal.get(work.task)
+        if kept is not None:
+            try:
+                work.route = Route.model_validate(kept)
+                work.usage = work.usage + work.route.usage
+                if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
+                    work.error = work.route.note
+                self.routes_reused += 1
+                return None
+            except ValueError:
+                work.route = None
+        failed = self.engine.try_route(work)
+        if failed is None and work.route is not None:
+            self.journal.add(work.task, work.route.model_dump(mode="json"))
+        return failed
 
     def run_batch(self, items: Iterable[Task | BadLine]) -> None:
         """Route everything first, then answer grouped by tool, then the fallbacks together."""
@@ -397,10 +517,13 @@ class RunLoop:
         works = []
         for task in tasks:
             if self.stop():
-                return  # nothing of these tasks is written yet: a rerun routes them again
+                return  # the decisions so far are in the journal: a rerun does not route them again
             work = _Work(task)
-            self.engine.route(work)
-            works.append(work)
+            failed = self._route(work)
+            if failed is not None:
+                self._write(failed)  # a task that cannot be routed is finished here
+            else:
+                works.append(work)
             self.progress.advance()
         self.progress.phase("answering", len(works))
         groups: dict[str, list[_Work]] = {}
@@ -411,7 +534,7 @@ class RunLoop:
             for w in groups[name]:
                 if self.stop():
                     return
-                record = self.engine.execute(w)
+                record = self.engine.try_execute(w)
                 if record is None:
                     later.append(w)
                 else:
@@ -419,7 +542,8 @@ class RunLoop:
         for w in later:
             if self.stop():
                 return
-            self._write(self.engine.fall_back(w))
+            self._write(self.engine.try_fall_back(w))
+        self.journal.close(finished=True)
 
     def run_follow(self, reader: QueueReader, poll: float = 0.5) -> None:
         """Answer line by line as lines are appended, until Ctrl-C."""
@@ -452,10 +576,13 @@ def run(loop: RunLoop, reader: QueueReader, *, follow: bool, out: str, load_cpu_
                 loop.run_batch(reader.items())
         except KeyboardInterrupt:
             interrupted = True
+        finally:
+            loop.journal.close(finished=False)
         interrupted = interrupted or loop.stop.requested
     return summarise(loop.records, queue=reader.source, out=out, skipped=loop.skipped, wall_seconds=sw.wall_seconds,
                      process_cpu_seconds=sw.cpu_seconds, load_cpu_seconds=load_cpu_seconds(),
-                     repaired_bytes=loop.resumed.repaired_bytes, interrupted=interrupted)
+                     repaired_bytes=loop.resumed.repaired_bytes, interrupted=interrupted,
+                     superseded=loop.superseded, routes_reused=loop.routes_reused)
 
 
 def default_out(queue: str) -> Path | None:
@@ -480,6 +607,7 @@ class Setup:
     executor: ChatModel
     fallback_model: Callable[[], ChatModel] | None
     opened: list[Any] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)  # warnings to show before answering (a damaged store)
 
 
 def local_model(role: str, name: str | None, threads: int, verbose: bool = False) -> ChatModel:
@@ -499,13 +627,24 @@ def local_model(role: str, name: str | None, threads: int, verbose: bool = False
 
 def local_setup(options: RunOptions, executor_name: str | None = None, builder_name: str | None = None,
                 verbose: bool = False, threads: int = 1) -> Setup:
-    """The verified tools of the tool store and the local models (the fallback model loads on first use)."""
+    """The verified tools of the tool store and the local models (the fallback model loads on first use).
+    A tool store that cannot be read is no reason to stop: with the fallback on, questions are answered
+    without tools and a note says why; with it off, the store's error stands."""
+    from .errors import StoreError
     from .store import ToolStore
 
-    with ToolStore() as store:
-        tools = list(store.tools(verified_only=True))
+    notes: list[str] = []
+    try:
+        with ToolStore() as store:
+            tools = list(store.tools(verified_only=True))
+            notes += store.warnings
+    except StoreError as exc:
+        if options.fallback == "none":
+            raise
+        tools = []
+        notes.append(f"{exc}: answering without tools")
     executor = local_model("executor", executor_name, threads, verbose)
-    setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor])
+    setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor], notes=notes)
 
     def fallback() -> ChatModel:
         model = executor if options.fallback == "executor" else local_model("builder", builder_name, threads, verbose)
@@ -521,7 +660,7 @@ def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *
     """`jigwright answer`: resume the answers file, answer every pending task, report. `out=None` writes the
     answer records to stdout instead (no resume)."""
     from .errors import InputError
-    from .queue import read_answers
+    from .queue import journal_path, read_answers
     from .sandbox import Sandbox
 
     progress = progress or _Quiet()
@@ -535,25 +674,39 @@ def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *
         if resumed.repaired_bytes:
             progress.message(f"{out}: cut a partial last line ({resumed.repaired_bytes} bytes) left by an "
                              f"interrupted run")
+        for note in setup.notes:
+            progress.message(note)
         if not setup.tools:
             progress.message("no verified tools in the tool store: every question goes to the fallback")
         with Sandbox(pool_size=1) as sandbox:
             engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
-            loop = RunLoop(engine, writer, resumed, progress, StopFlag(progress))
+            journal = RouteJournal(journal_path(out) if out is not None and options.group and not follow else None,
+                                   engine.router_key)
+            loop = RunLoop(engine, writer, resumed, progress, StopFlag(progress), journal)
             return run(loop, reader, follow=follow, out=str(out) if out else "-", poll=poll,
                        load_cpu_seconds=lambda: _load_cpu(*{id(m): m for m in setup.opened}.values()))
 
 
 def ask(question: str, options: RunOptions, setup: Setup) -> AnswerRecord:
-    """`jigwright ask`: the run loop's path for one question, nothing written."""
+    """`jigwright ask`: the run loop's path for one question, nothing written. A question that is not text
+    (bytes that are not UTF-8 reach argv as lone surrogates) or too long for the context is an InputError;
+    any other failure comes back as the error record."""
     from .errors import InputError
+    from .queue import lone_surrogate
     from .sandbox import Sandbox
 
     if not question.strip():
         raise InputError("the question is empty")
+    at = lone_surrogate(question)
+    if at is not None:
+        raise InputError(f"the question is not UTF-8 text (byte 0x{ord(question[at]) & 0xff:02x} at character "
+                         f"{at + 1})")
     with Sandbox(pool_size=1) as sandbox:
         engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
-        return engine.answer(Task(id="ask", question=question.strip(), line=0))
+        record = engine.answer(Task(id="ask", question=question.strip(), line=0))
+    if record.error_kind == "too_long":
+        raise InputError(record.error or "the question is too long")
+    return record
 
 
 class Score(BaseModel):
@@ -576,7 +729,7 @@ def score_answers(records: list[AnswerRecord], expected: list[dict[str, Any]],
     from .execute import answers_match
     from .tools import slug
 
-    by_id = {r.id: r for r in records}
+    by_id = Resumed(records).latest  # the newest answer record of each id
     s = Score(tasks=0, routed_right=0, answers_checked=0, answers_right=0, unrelated=0, unrelated_to_none=0)
     for exp in expected:
         rec = by_id.get(str(exp.get("id")))

@@ -4,24 +4,41 @@ from __future__ import annotations
 
 import json
 import os
+import sqlite3
 import tempfile
 from pathlib import Path
 from typing import Iterator
 
 import diskcache
+from pydantic import ValidationError
 
 from . import settings
-from .errors import ToolNotFoundError
+from .errors import StoreError, ToolNotFoundError
 from .tools import Tool
 
 
+def damaged(path: Path, exc: BaseException) -> StoreError:
+    """The one-line error for a tool store whose files cannot be read, with the way out."""
+    why = " ".join(str(exc).split()) or type(exc).__name__
+    return StoreError(f"the tool store at {path} cannot be read ({why}); move the folder aside "
+                      f"(mv {path} {path}.damaged) and build the tools again with `jigwright build`; "
+                      f"`jigwright answer --fallback builder` still answers without tools meanwhile")
+
+
 class ToolStore:
-    """Content-addressed records (`key:` → tool JSON) plus a name index (`name:` → key)."""
+    """Content-addressed records (`key:` → tool JSON) plus a name index (`name:` → key). A record that no
+    longer validates (written by another version, or edited by hand) is skipped with a warning in
+    `warnings` when listing, and named in the error when asked for by name."""
 
     def __init__(self, path: Path | None = None):
         self.path = path or settings.store_dir()
-        self.path.mkdir(parents=True, exist_ok=True)
-        self._cache = diskcache.Cache(str(self.path))
+        self.warnings: list[str] = []
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            self._cache = diskcache.Cache(str(self.path))
+            self._cache.get("name:")  # a damaged database fails here, not half-way through a run
+        except (sqlite3.Error, OSError) as exc:
+            raise damaged(self.path, exc) from None
 
     def close(self) -> None:
         self._cache.close()
@@ -32,9 +49,24 @@ class ToolStore:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-    def by_key(self, key: str) -> Tool | None:
-        raw = self._cache.get(f"key:{key}")
-        return Tool.model_validate_json(raw) if raw else None
+    def by_key(self, key: str, name: str | None = None) -> Tool | None:
+        """The tool stored under `key`; None if there is none, or if its record no longer validates (then a
+        warning names it and the caller builds afresh)."""
+        try:
+            raw = self._cache.get(f"key:{key}")
+        except sqlite3.Error as exc:
+            raise damaged(self.path, exc) from None
+        if not raw:
+            return None
+        try:
+            return Tool.model_validate_json(raw)
+        except (ValidationError, ValueError) as exc:
+            first = exc.errors()[0] if isinstance(exc, ValidationError) else {"loc": (), "msg": str(exc)}
+            where = ".".join(str(p) for p in first["loc"]) or "(record)"
+            which = f"of tool '{name}' (key {key[:12]}…)" if name else f"{key[:12]}…"
+            self.warnings.append(f"skipped the stored record {which} in {self.path}: it does not validate "
+                                 f"({where}: {first['msg']}); `jigwright tools retire {name or 'NAME'}` removes it")
+            return None
 
     def put(self, tool: Tool) -> None:
         """Store a tool; a verified tool also takes its name (a failed build never replaces a verified one)."""
@@ -52,15 +84,23 @@ class ToolStore:
         return self._cache.get(f"failed:{key}")
 
     def get(self, name: str, missing_ok: bool = False) -> Tool | None:
-        key = self._cache.get(f"name:{name}")
-        tool = self.by_key(key) if key else None
+        try:
+            key = self._cache.get(f"name:{name}")
+        except sqlite3.Error as exc:
+            raise damaged(self.path, exc) from None
+        tool = self.by_key(key, name) if key else None
         if tool is None and not missing_ok:
+            if key:
+                raise ToolNotFoundError(f"the stored record of tool '{name}' does not validate ({self.warnings[-1]})")
             known = ", ".join(self.names()) or "none yet"
             raise ToolNotFoundError(f"no tool named '{name}' in the tool store (known: {known})")
         return tool
 
     def names(self) -> list[str]:
-        return sorted(k[5:] for k in self._cache.iterkeys() if isinstance(k, str) and k.startswith("name:"))
+        try:
+            return sorted(k[5:] for k in self._cache.iterkeys() if isinstance(k, str) and k.startswith("name:"))
+        except sqlite3.Error as exc:
+            raise damaged(self.path, exc) from None
 
     def tools(self, verified_only: bool = False) -> Iterator[Tool]:
         for name in self.names():
@@ -68,13 +108,15 @@ class ToolStore:
             if tool and (tool.verified or not verified_only):
                 yield tool
 
-    def remove(self, name: str) -> Tool:
-        tool = self.get(name)
-        assert tool is not None
+    def remove(self, name: str) -> str:
+        """Take a tool out of the store (a record that no longer validates too); returns its key."""
+        key = self._cache.get(f"name:{name}")
+        if not key:
+            self.get(name)  # raises ToolNotFoundError with the known names
         with self._cache.transact():
             self._cache.delete(f"name:{name}")
-            self._cache.delete(f"key:{tool.key}")
-        return tool
+            self._cache.delete(f"key:{key}")
+        return str(key)
 
 
 _TEST_FILE = """\"\"\"Verification examples of the tool {name}, exported by Jigwright (runs with plain pytest).\"\"\"

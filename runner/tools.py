@@ -53,6 +53,8 @@ class Provenance(BaseModel):
     examples_sha256: str
     strategy: str = ""
     created: str = Field(default_factory=lambda: datetime.now(timezone.utc).isoformat(timespec="seconds"))
+    runner: str = Field("", description="the runner's code fingerprint at build time ('' before it was kept)")
+    inputs_key: str = Field("", description="the build key without the runner's fingerprint")
 
 
 class Tool(BaseModel):

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Callable
 
-from runner.llm import Message, Reply
+from runner.llm import Message, Reply, check_fits
 from runner.meter import Usage
 
 Script = list[str] | Callable[..., "str | Reply"]
@@ -54,9 +54,15 @@ class ScriptedModel:
     cpu_per_completion_token: float = 0.004
     calls: list[Call] = field(default_factory=list)
     _last_prompt: list[str] = field(default_factory=list)
+    n_ctx: int | None = None  # set to check prompts against a context as LocalModel does (tokens are words)
+
+    def prompt_tokens(self, messages: list[Message]) -> int:
+        return len(prompt_tokens(messages))
 
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
              stop: list[str] | None = None, schema: dict | None = None) -> Reply:
+        if self.n_ctx is not None:
+            check_fits(self.name, self.prompt_tokens(messages), max_tokens, self.n_ctx)
         self.calls.append(Call(list(messages), seed, temperature, max_tokens, stop, schema))
         if callable(self.replies):
             out = self.replies(messages, seed=seed, temperature=temperature, max_tokens=max_tokens, stop=stop,

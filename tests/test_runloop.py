@@ -602,6 +602,24 @@ def _opening(question: str) -> list[str]:
     return re.sub(r"\b[A-Z][a-z]+\b", "N", re.sub(r"\d[\d-]*", "#", question)).split()[:6]
 
 
+def store_real_tools() -> None:
+    """Put the two hand-made real tools into the current JIGWRIGHT_HOME's tool store."""
+    from runner.store import ToolStore
+
+    with ToolStore() as store:
+        for t in real_tools():
+            store.put(t)
+
+
+def family_tasks(lo: int, hi: int) -> list[dict]:
+    """Tasks lo..hi-1 of the departures and working-days test files (id, question, answer)."""
+    tasks = []
+    for fam in ("departures", "working_days"):
+        test = [json.loads(l) for l in (ROOT / "samples" / fam / "test.jsonl").read_text().splitlines()]
+        tasks += [{"id": t["id"], "question": t["question"], "answer": t["answer"]} for t in test[lo:hi]]
+    return tasks
+
+
 def real_queue() -> list[dict]:
     """Two test tasks per tool phrased like one of its two demos (this test is about routing, answering and
     falling back; how well the executor reads phrasings its demos do not show is the eval's job)."""
@@ -653,15 +671,8 @@ def test_real_models_route_answer_and_fall_back(tmp_home, tmp_path):
 @pytest.mark.models
 def test_real_run_killed_midway_resumes_without_duplicates(tmp_home, tmp_path):
     need_models()
-    from runner.store import ToolStore
-
-    with ToolStore() as store:
-        for t in real_tools():
-            store.put(t)
-    tasks = []
-    for fam in ("departures", "working_days"):
-        test = [json.loads(l) for l in (ROOT / "samples" / fam / "test.jsonl").read_text().splitlines()]
-        tasks += [{"id": t["id"], "question": t["question"]} for t in test[3:5]]
+    store_real_tools()
+    tasks = [{"id": t["id"], "question": t["question"]} for t in family_tasks(3, 5)]
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "answers.jsonl"
     cmd = [JW, "answer", str(q), "--out", str(out), "--fallback", "none", "--json"]
