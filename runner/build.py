@@ -30,7 +30,7 @@ STEPS = ("shape", "draft", "repair", "verify", "card")
 STRATEGIES = ("direct", "search", "choose", "simulate", "permute")
 TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
              "strategy_direct.j2", "strategy_search.j2", "strategy_choose.j2", "strategy_permute.j2",
-             "strategy_simulate.j2", "repair.j2", "executor_fill.j2")
+             "strategy_simulate.j2", "repair.j2", "executor_fill.j2", "hints.j2")
 # The choose strategy's solve: try each value found at the answer's place in the arguments (a path such as
 # "crew[].name", see shapecheck.answer_paths), return the first for which the builder's `holds` is True.
 CHOOSE_SOLVE = """
@@ -72,6 +72,7 @@ class Family(BaseModel):
     examples: list[Example]
     source: str
     rel_tol: float = Field(REL_TOL, description="relative tolerance for float answers (family.toml `tolerance`)")
+    hints: list[str] = Field(default_factory=list)  # the user's own lines about the rule, given verbatim
 
 
 def parse_solved(source: str, lines: list[str]) -> list[Example]:
@@ -149,13 +150,26 @@ def load_family(path: Path, name: str | None = None, description: str | None = N
             about = tomllib.loads(toml.read_text(encoding="utf-8"))
         except tomllib.TOMLDecodeError as exc:
             raise InputError(f"{toml}: not valid TOML: {exc}") from exc
+    unanswered = [e.line for e in examples if e.answer is None or (isinstance(e.answer, str) and not e.answer.strip())]
+    if unanswered:
+        raise InputError(f"{path}: line{'s' if len(unanswered) > 1 else ''} {', '.join(map(str, unanswered))} "
+                         f"{'have' if len(unanswered) > 1 else 'has'} an empty answer: fill in every 'answer' before building")
     default_name = path.parent.name if path.stem in ("examples", "family") else path.stem
     tolerance = about.get("tolerance", REL_TOL)
     if isinstance(tolerance, bool) or not isinstance(tolerance, (int, float)) or not 0 <= tolerance < 1:
         raise InputError(f"{toml}: 'tolerance' must be a relative tolerance between 0 and 1, got {tolerance!r}")
     return Family(name=slug(name or about.get("name") or default_name),
                   description=description or about.get("description", ""), examples=examples, source=str(path),
-                  rel_tol=float(tolerance))
+                  rel_tol=float(tolerance), hints=read_hints(toml, about.get("hints", [])))
+
+
+def read_hints(toml: Path, raw: Any) -> list[str]:
+    """`hints` in family.toml: one line of text or a list of lines, each stating the rule as a user would."""
+    if isinstance(raw, str):
+        raw = raw.splitlines()
+    if not isinstance(raw, list) or not all(isinstance(h, str) for h in raw):
+        raise InputError(f"{toml}: 'hints' must be a line of text or a list of lines")
+    return [h.strip() for h in raw if h.strip()]
 
 
 # ---- settings and report ----------------------------------------------------------------------------------
@@ -356,6 +370,8 @@ def inputs_key(family: Family, builder_sha: str, executor_sha: str, settings: Bu
                "rel_tol": family.rel_tol, "builder": builder_sha, "executor": executor_sha,
                "templates": prompts.template_hash(*TEMPLATES),
                "settings": settings.model_dump(exclude={"budget_cpu_minutes"})}
+    if family.hints:  # only when given, so builds without hints keep their keys
+        payload["hints"] = family.hints
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
 
 
@@ -373,6 +389,54 @@ def budget_covers(stored: float | None, stopped: str, wanted: float | None) -> b
     if not stopped or stored is None:
         return True
     return wanted is not None and wanted <= stored
+
+
+# ---- checks shared by the builder and by tools finished by hand (runner/handfinish.py) ----------------------
+
+def drafting_checks(sandbox: Any, code: str, examples: list[Example], objects: list[dict[str, Any]],
+                    entry: str = "solve", rel_tol: float = REL_TOL) -> list[ExampleCheck]:
+    """Run the code on each drafting example's argument object in the sandbox and compare with its answer."""
+    checks = []
+    for ex, args in zip(examples, objects):
+        res = sandbox.run(code, args, entry=entry)
+        checks.append(ExampleCheck(id=ex.id, split="draft", question=ex.question, expected=ex.answer, arguments=args,
+                                   got=res.value if res.status == "ok" else None,
+                                   ok=res.status == "ok" and answers_match(ex.answer, res.value, rel_tol),
+                                   error=None if res.status == "ok" else res.message))
+    return checks
+
+
+def fill_examples(executor: ChatModel, card: Card, examples: list[Example], *, seed: int,
+                  before: Callable[[int], None] | None = None,
+                  after: Callable[[Example, Filled], None] | None = None) -> list[Filled]:
+    """The executor fills the card's arguments from each example's question, exactly as when answering a queue."""
+    fills = []
+    for i, ex in enumerate(examples):
+        if before:
+            before(i)
+        filled = fill_arguments(executor, card, ex.question, seed=seed)
+        if after:
+            after(ex, filled)
+        fills.append(filled)
+    return fills
+
+
+def held_out_checks(sandbox: Any, code: str, examples: list[Example], fills: list[Filled],
+                    entry: str = "solve", rel_tol: float = REL_TOL) -> list[ExampleCheck]:
+    """End to end on held-out examples: the executor's arguments go into the code in the sandbox, and the value
+    is compared with the expected answer (a fill that did not fit the schema is a miss)."""
+    checks = []
+    for ex, filled in zip(examples, fills):
+        if filled.arguments is None:
+            checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+                                       ok=False, error=filled.error))
+            continue
+        res = sandbox.run(code, filled.arguments, entry=entry)
+        checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+                                   arguments=filled.arguments, got=res.value if res.status == "ok" else None,
+                                   ok=res.status == "ok" and answers_match(ex.answer, res.value, rel_tol),
+                                   error=None if res.status == "ok" else res.message))
+    return checks
 
 
 # ---- the pipeline -------------------------------------------------------------------------------------------
@@ -400,6 +464,7 @@ class Builder:
         self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out),
                                   budget_cpu_minutes=settings.budget_cpu_minutes, runner=code_fingerprint("build"))
         self._seed = settings.seed
+        self.best_draft: tuple[Candidate, ShapeCandidate] | None = None  # most drafting examples passed so far
 
     # -- accounting
     def _next_seed(self) -> int:
@@ -435,7 +500,7 @@ class Builder:
             msgs += [{"role": "user", "content": prompts.render("shape_demo.j2", part="user", index=index)},
                      {"role": "assistant", "content": prompts.render("shape_demo.j2", part="assistant", index=index)}]
         return msgs + [{"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
-                                                                  questions=questions)}]
+                                                                  hints=self.family.hints, questions=questions)}]
 
     def shapes(self) -> Iterator[ShapeCandidate]:
         """Sampled argument designs, checked mechanically. Proposals with no problem are yielded as they come;
@@ -486,7 +551,8 @@ class Builder:
         examples = [{"question": e.question, "arguments": a, "answer_repr": repr(e.answer)}
                     for e, a in zip(self.drafting, shape.objects)]
         assert shape.schema is not None
-        user = prompts.render("draft.j2", description=self.family.description, schema=shape.schema,
+        user = prompts.render("draft.j2", description=self.family.description, hints=self.family.hints,
+                              schema=shape.schema,
                               examples=examples, strategy=strategy, signature=_signature(shape.schema),
                               answer_type=_answer_type([e.answer for e in self.drafting]),
                               answer_from=shape.answer_from)
@@ -522,6 +588,8 @@ class Builder:
                 break
         self.trace({"step": "check", "strategy": cand.strategy, "passed": cand.draft_ok,
                     "of": len(self.drafting), "feedback": cand.feedback})
+        if self.best_draft is None or cand.draft_ok > self.best_draft[0].draft_ok:
+            self.best_draft = (cand, shape)
 
     def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
         msgs = self.draft_messages(shape, strategy)
@@ -562,42 +630,23 @@ class Builder:
                                                 for e, a in zip(self.drafting, shape.objects)])
 
     def fill_held_out(self, card: Card) -> list[Filled]:
-        fills = []
-        for i, ex in enumerate(self.held_out):
-            self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}")
-            filled = fill_arguments(self.executor, card, ex.question, seed=self.settings.seed)
+        def after(ex: Example, filled: Filled) -> None:
             self._charge("verify", filled.usage, "executor")
             self.trace({"step": "fill", "question": ex.question, "arguments": filled.arguments,
                         "error": filled.error, "usage": filled.usage.model_dump()})
-            fills.append(filled)
-        return fills
+
+        return fill_examples(self.executor, card, self.held_out, seed=self.settings.seed, after=after,
+                             before=lambda i: self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}"))
 
     def draft_checks(self, code: str, shape: ShapeCandidate) -> list[ExampleCheck]:
         """What the tool returns on each drafting example, as it returned it (not a copy of the expected
         answer), so a stored tool's record shows its own results."""
-        checks = []
-        for e, a in zip(self.drafting, shape.objects):
-            res = self.sandbox.run(code, a)
-            good = res.status == "ok" and answers_match(e.answer, res.value, self.family.rel_tol)
-            checks.append(ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
-                                       got=res.value if res.status == "ok" else None, ok=good,
-                                       error=None if res.status == "ok" else res.message))
-        return checks
+        return drafting_checks(self.sandbox, code, self.drafting, shape.objects, rel_tol=self.family.rel_tol)
 
     def verify(self, cand: Candidate, shape: ShapeCandidate, fills: list[Filled]) -> None:
-        checks = self.draft_checks(cand.code, shape)
-        ok = 0
-        for ex, filled in zip(self.held_out, fills):
-            if filled.arguments is None:
-                checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
-                                           ok=False, error=filled.error))
-                continue
-            res = self.sandbox.run(cand.code, filled.arguments)
-            good = res.status == "ok" and answers_match(ex.answer, res.value, self.family.rel_tol)
-            ok += good
-            checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
-                                       arguments=filled.arguments, got=res.value if res.status == "ok" else None,
-                                       ok=good, error=None if res.status == "ok" else res.message))
+        held = held_out_checks(self.sandbox, cand.code, self.held_out, fills, rel_tol=self.family.rel_tol)
+        checks = self.draft_checks(cand.code, shape) + held
+        ok = sum(c.ok for c in held)
         self.report.steps["verify"].tried += 1
         cand.checks = checks
         cand.score = ok / len(self.held_out) if self.held_out else 0.0
@@ -733,9 +782,17 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
     report = b.report
     if cand is None or shape is None or card is None:
         report.verified = False
-        store.put_failed(b.key, report.model_dump_json())
-        return None, report
-    report.verified = cand.score >= settings.min_score
+        if b.best_draft is None:
+            store.put_failed(b.key, report.model_dump_json())
+            return None, report
+        # nothing passed its drafting examples; the closest attempt is kept, unverified, to finish by hand
+        cand, shape = b.best_draft
+        card = b.card(shape)
+        cand.checks = drafting_checks(sandbox, cand.code, b.drafting, shape.objects, rel_tol=family.rel_tol)
+        cand.score = 0.0
+        report.failures.append(f"best attempt kept unverified: {cand.strategy}, {cand.draft_ok}/{len(b.drafting)} "
+                               "drafting examples (`jigwright tools edit` finishes it by hand)")
+    report.verified = cand.score >= settings.min_score and bool(cand.checks) and all(c.ok for c in cand.checks)
     report.held_out_score = cand.score
     report.strategy = cand.strategy
     report.steps["card"].tried = report.steps["card"].passed = 1

@@ -169,8 +169,12 @@ def test_timeouts_are_reported_and_nothing_verifies(family, sandbox, tmp_path):
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
                                  strategies=["direct"], shape_samples=1)
-    assert tool is None and not report.verified
+    assert not report.verified
     assert any("ran too long" in f for f in report.failures)
+    # the closest attempt is kept unverified (for `tools edit`), with its drafting checks as they ran
+    assert tool is not None and not tool.verified and tool.held_out_score == 0.0
+    assert [c.split for c in tool.checks] == ["draft"] * 3 and not any(c.ok for c in tool.checks)
+    assert all("limit" in (c.error or "") for c in tool.checks), [c.error for c in tool.checks]
 
 
 def test_wrong_executor_arguments_fail_verification_and_do_not_replace_a_verified_tool(family, sandbox, tmp_path):
