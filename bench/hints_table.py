@@ -29,7 +29,7 @@ def build_once(family: str, hint: str | None, budget: float) -> dict:
         if hint:
             with open(folder / "family.toml", "a", encoding="utf-8") as fh:
                 fh.write(f"hints = [{json.dumps(hint)}]\n")
-        cmd = [sys.executable, "-m", "runner.cli", "build", str(folder / "examples.jsonl"), "--budget-cpu-min",
+        cmd = [sys.executable, "-c", "from runner.cli import main; main()", "build", str(folder / "examples.jsonl"), "--budget-cpu-min",
                str(budget), "--force", "--json"]
         env = {**os.environ, "PYTHONPATH": str(ROOT)}
         proc = subprocess.run(cmd, cwd=ROOT, env=env, capture_output=True, text=True)

@@ -393,6 +393,13 @@ def budget_covers(stored: float | None, stopped: str, wanted: float | None) -> b
 
 # ---- checks shared by the builder and by tools finished by hand (runner/handfinish.py) ----------------------
 
+def make_card(name: str, description: str, schema: dict[str, Any], drafting: list[Example],
+              objects: list[dict[str, Any]]) -> Card:
+    """The usage card: the drafting questions and their argument objects are the executor's demos."""
+    return Card(name=name, description=description or name, schema=schema,
+                demos=[Demo(question=e.question, arguments=a) for e, a in zip(drafting, objects)])
+
+
 def drafting_checks(sandbox: Any, code: str, examples: list[Example], objects: list[dict[str, Any]],
                     entry: str = "solve", rel_tol: float = REL_TOL) -> list[ExampleCheck]:
     """Run the code on each drafting example's argument object in the sandbox and compare with its answer."""
@@ -625,9 +632,7 @@ class Builder:
     # -- verify
     def card(self, shape: ShapeCandidate) -> Card:
         assert shape.schema is not None
-        return Card(name=self.family.name, description=self.family.description or self.family.name,
-                    schema=shape.schema, demos=[Demo(question=e.question, arguments=a)
-                                                for e, a in zip(self.drafting, shape.objects)])
+        return make_card(self.family.name, self.family.description, shape.schema, self.drafting, shape.objects)
 
     def fill_held_out(self, card: Card) -> list[Filled]:
         def after(ex: Example, filled: Filled) -> None:
@@ -790,6 +795,8 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
         card = b.card(shape)
         cand.checks = drafting_checks(sandbox, cand.code, b.drafting, shape.objects, rel_tol=family.rel_tol)
         cand.score = 0.0
+        cand.checks += [ExampleCheck(id=e.id, split="held_out", question=e.question, expected=e.answer, ok=False,
+                                     error="not checked: no draft passed its drafting examples") for e in b.held_out]
         report.failures.append(f"best attempt kept unverified: {cand.strategy}, {cand.draft_ok}/{len(b.drafting)} "
                                "drafting examples (`jigwright tools edit` finishes it by hand)")
     report.verified = cand.score >= settings.min_score and bool(cand.checks) and all(c.ok for c in cand.checks)

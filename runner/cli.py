@@ -209,7 +209,7 @@ def models_try(name: str = typer.Argument(..., help="Model name."),
 
 # ---- build and tools -----------------------------------------------------------------------------------------
 
-tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire.")
+tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire, edit, adopt.")
 app.add_typer(tools_app, name="tools")
 
 
@@ -403,6 +403,81 @@ def tools_retire(name: str) -> None:
     with ToolStore() as store:
         store.remove(name)
     out.print(f"retired '{name}'")
+
+
+# ---- tools finished by hand -----------------------------------------------------------------------------------
+
+def _hand_table(report) -> Table:
+    t = Table(title=f"Checks of '{report.tool}' ({report.origin})")
+    for c in ("id", "split", "expected", "got", "ok"):
+        t.add_column(c)
+    for c in report.checks:
+        got = str(c.got) if c.error is None else f"{c.got} ({c.error})"
+        t.add_row(c.id, c.split, str(c.expected), got[:60], "yes" if c.ok else "[red]no[/red]")
+    verdict = "[green]verified[/green]" if report.verified else "[red]NOT verified[/red]"
+    t.caption = (f"{verdict}: drafting {report.drafting_ok}/{report.drafting}, held-out {report.held_out_ok}/"
+                 f"{report.held_out} (executor fills, {report.executor_cpu:.1f} CPU s)")
+    return t
+
+
+def _check_by_hand(work, code: str, origin: str, executor_name: Optional[str], seed: int, as_json: bool,
+                   base=None) -> None:
+    from .handfinish import check_by_hand, screen_or_fail
+    from .llm import open_model
+    from .sandbox import Sandbox
+    from .store import ToolStore
+
+    screen_or_fail(code, "the tool's code")  # before loading the executor
+    caution()
+    emodel = open_model("executor", executor_name, verbose=STATE["verbose"])
+    with ToolStore() as store, Sandbox() as sandbox, err.status("checking") as status:
+        tool, report = check_by_hand(work, code, origin, executor=emodel, sandbox=sandbox, store=store, seed=seed,
+                                     executor_sha=emodel.spec.sha256, base=base,
+                                     progress=lambda note: status.update(note))
+    if as_json:
+        out.print_json(report.model_dump_json())
+    else:
+        out.print(_hand_table(report))
+    if not report.verified:
+        raise BuildFailedError(f"'{report.tool}' is stored unverified (key {report.key[:12]}): fix the code and run "
+                               f"`jigwright tools edit {report.tool}` again")
+    out.print(f"'{report.tool}' verified and stored ({origin}); it now answers its questions: "
+              f"`jigwright answer QUEUE.jsonl`")
+
+
+@tools_app.command("edit")
+def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt, verified or not)."),
+               from_file: Optional[Path] = typer.Option(None, "--from", help="The corrected code (instead of opening $EDITOR)."),
+               executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
+               seed: int = typer.Option(0, "--seed"),
+               as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
+    """Finish a tool by hand: edit its code, then check it end to end as a build does (stored verified only if
+    every drafting and held-out example passes)."""
+    from .handfinish import open_in_editor, read_code, work_from_tool
+    from .store import ToolStore
+
+    with ToolStore() as store:
+        tool = store.get(name)
+    assert tool is not None
+    work = work_from_tool(tool)
+    code = read_code(from_file) if from_file is not None else open_in_editor(tool)
+    _check_by_hand(work, code, "edited by hand", executor_name, seed, as_json, base=tool.provenance)
+
+
+@tools_app.command("adopt")
+def tools_adopt(code_file: Path = typer.Argument(..., help="Python file defining solve(**arguments)."),
+                examples: Path = typer.Option(..., "--examples", help="Family file (JSONL); lines with 'arguments' are the drafting examples, the rest are held out."),
+                schema: Optional[Path] = typer.Option(None, "--schema", help="JSON Schema of the arguments (default: inferred from the 'arguments' objects)."),
+                name: Optional[str] = typer.Option(None, "--name", help="Tool name (default: family.toml or folder name)."),
+                description: Optional[str] = typer.Option(None, "--description", help="One line: what the questions ask."),
+                executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
+                seed: int = typer.Option(0, "--seed"),
+                as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
+    """Take in a tool written from scratch and check it end to end as a build does."""
+    from .handfinish import read_code, work_from_family
+
+    work = work_from_family(examples, schema, name, description)
+    _check_by_hand(work, read_code(code_file), "written by hand", executor_name, seed, as_json)
 
 
 # ---- answer and ask------------------------------------------------------------------------------------------

@@ -52,6 +52,7 @@ class Provenance(BaseModel):
     family_file: str
     examples_sha256: str
     strategy: str = ""
+    origin: Literal["built", "edited by hand", "written by hand"] = "built"
     created: str = Field(default_factory=lambda: datetime.now(timezone.utc).isoformat(timespec="seconds"))
     runner: str = Field("", description="the runner's code fingerprint at build time ('' before it was kept)")
     inputs_key: str = Field("", description="the build key without the runner's fingerprint")
