@@ -441,8 +441,8 @@ def _check_by_hand(work, code: str, origin: str, executor_name: Optional[str], s
     if not report.verified:
         raise BuildFailedError(f"'{report.tool}' is stored unverified (key {report.key[:12]}): fix the code and run "
                                f"`jigwright tools edit {report.tool}` again")
-    out.print(f"'{report.tool}' verified and stored ({origin}); it now answers its questions: "
-              f"`jigwright answer QUEUE.jsonl`")
+    err.print(f"'{report.tool}' verified and stored ({origin}); it now answers its questions: "
+              f"`jigwright answer QUEUE.jsonl`", highlight=False)
 
 
 @tools_app.command("edit")
