@@ -726,6 +726,34 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
               f"wrote {', '.join(report.files.values())}", highlight=False)
 
 
+@app.command("suggest")
+def suggest_cmd(answers: Path = typer.Argument(..., help="An answers file written by `jigwright answer`."),
+                out_dir: Path = typer.Option(Path("suggested"), "--out", help="Folder to write the family folders in."),
+                min_group: int = typer.Option(5, "--min-group", min=2, help="Smallest group written as a family."),
+                threshold: float = typer.Option(0.85, "--threshold", min=0.05, max=1.0,
+                                                help="Cosine distance at which groups stop merging (lower: more, tighter groups)."),
+                as_json: bool = typer.Option(False, "--json", help="The groups as JSON on stdout.")) -> None:
+    """Group the questions no tool answered by similarity and write a family folder for each large group:
+    examples with empty answers for a person to fill in, and a family.toml stub with a suggested name."""
+    from .suggest import suggest
+
+    result = suggest(answers, out_dir, min_group=min_group, threshold=threshold)
+    if as_json:
+        out.print_json(result.model_dump_json())
+        return
+    t = Table(title=f"Unanswered questions in {answers}: {result.unanswered}")
+    for c in ("folder", "questions", "shared words", "e.g."):
+        t.add_column(c, overflow="fold")
+    for g in result.groups:
+        t.add_row(g.folder, str(len(g.questions)), ", ".join(g.words[:3]), g.questions[0].question[:50] + "…")
+    t.caption = f"{result.left} question(s) left in groups under {min_group}"
+    out.print(t)
+    if result.groups:
+        out.print("Next: fill in every answer in each examples.jsonl, write a description in family.toml, then "
+                  "`jigwright build FOLDER/examples.jsonl`; answer FOLDER/queue.jsonl once its tool verifies.",
+                  highlight=False)
+
+
 def eval_tables(report) -> list:
     """The eval for the terminal: accuracy and cost by family and method, then the split's break-even. The
     p95 CPU, tokens per task and model names are in eval.md and eval.json, which have room for them."""
