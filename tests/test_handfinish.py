@@ -261,7 +261,7 @@ def test_edit_from_a_corrected_file_then_answer_the_demo_family(tmp_home, tmp_pa
     need_models()
     family = B.load_family(CODES / "examples.jsonl")
     objects = [{"code": re.search(r"[A-Z]{4}[0-9]{6}", e.question).group()} for e in family.examples[:3]]
-    assert [o["code"] for o in objects] == ["OWDJ270581", "PERZ871210", "WJUU043094"]
+    held = len(family.examples) - 3
 
     def builder(messages, **kw):
         if messages[0]["content"].startswith("You design the arguments"):
@@ -279,7 +279,7 @@ def test_edit_from_a_corrected_file_then_answer_the_demo_family(tmp_home, tmp_pa
     assert proc.returncode == 0, proc.stderr
     report = json.loads(proc.stdout)
     assert report["verified"] and report["origin"] == "edited by hand"
-    assert (report["drafting_ok"], report["held_out_ok"], report["held_out"]) == (3, 3, 3)
+    assert (report["drafting_ok"], report["held_out_ok"], report["held_out"]) == (3, held, held)
     assert report["executor_cpu"] > 0  # the held-out arguments were filled by the real executor
     with ToolStore() as store:
         assert store.get("container-codes").provenance.origin == "edited by hand"
