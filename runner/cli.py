@@ -18,6 +18,7 @@ from rich.text import Text
 
 from . import models, settings
 from .errors import BuildFailedError, JigwrightError
+from .suggest import MIN_GROUP, THRESHOLD
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, rich_markup_mode=None,
                   help="Jigwright: a builder model writes verified tools from solved examples; "
@@ -420,14 +421,14 @@ def _hand_table(report) -> Table:
     return t
 
 
-def _check_by_hand(work, code: str, origin: str, executor_name: Optional[str], seed: int, as_json: bool,
-                   base=None) -> None:
+def _check_by_hand(work, code: str, where: str, origin: str, executor_name: Optional[str], seed: int,
+                   as_json: bool, base=None) -> None:
     from .handfinish import check_by_hand, screen_or_fail
     from .llm import open_model
     from .sandbox import Sandbox
     from .store import ToolStore
 
-    screen_or_fail(code, "the tool's code")  # before loading the executor
+    screen_or_fail(code, where)  # before loading the executor
     caution()
     emodel = open_model("executor", executor_name, verbose=STATE["verbose"])
     with ToolStore() as store, Sandbox() as sandbox, err.status("checking") as status:
@@ -461,7 +462,8 @@ def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt
     assert tool is not None
     work = work_from_tool(tool)
     code = read_code(from_file) if from_file is not None else open_in_editor(tool)
-    _check_by_hand(work, code, "edited by hand", executor_name, seed, as_json, base=tool.provenance)
+    where = str(from_file) if from_file is not None else "the edited code"
+    _check_by_hand(work, code, where, "edited by hand", executor_name, seed, as_json, base=tool.provenance)
 
 
 @tools_app.command("adopt")
@@ -477,7 +479,7 @@ def tools_adopt(code_file: Path = typer.Argument(..., help="Python file defining
     from .handfinish import read_code, work_from_family
 
     work = work_from_family(examples, schema, name, description)
-    _check_by_hand(work, read_code(code_file), "written by hand", executor_name, seed, as_json)
+    _check_by_hand(work, read_code(code_file), str(code_file), "written by hand", executor_name, seed, as_json)
 
 
 # ---- answer and ask------------------------------------------------------------------------------------------
@@ -729,8 +731,8 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
 @app.command("suggest")
 def suggest_cmd(answers: Path = typer.Argument(..., help="An answers file written by `jigwright answer`."),
                 out_dir: Path = typer.Option(Path("suggested"), "--out", help="Folder to write the family folders in."),
-                min_group: int = typer.Option(5, "--min-group", min=2, help="Smallest group written as a family."),
-                threshold: float = typer.Option(0.85, "--threshold", min=0.05, max=1.0,
+                min_group: int = typer.Option(MIN_GROUP, "--min-group", min=2, help="Smallest group written as a family."),
+                threshold: float = typer.Option(THRESHOLD, "--threshold", min=0.05, max=1.0,
                                                 help="Cosine distance at which groups stop merging (lower: more, tighter groups)."),
                 as_json: bool = typer.Option(False, "--json", help="The groups as JSON on stdout.")) -> None:
     """Group the questions no tool answered by similarity and write a family folder for each large group:
