@@ -452,8 +452,10 @@ def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt
                executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
                seed: int = typer.Option(0, "--seed"),
                as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
-    """Finish a tool by hand: edit its code, then check it end to end as a build does (stored verified only if
-    every drafting and held-out example passes)."""
+    """Finish a tool by hand, then check it end to end as a build does.
+
+    Opens the tool's best attempt (verified or not) in $VISUAL or $EDITOR, or takes --from FILE; the result is
+    stored as verified only if every drafting and held-out example passes."""
     from .handfinish import open_in_editor, read_code, work_from_tool
     from .store import ToolStore
 
