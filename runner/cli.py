@@ -449,6 +449,7 @@ def _check_by_hand(work, code: str, where: str, origin: str, executor_name: Opti
 @tools_app.command("edit")
 def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt, verified or not)."),
                from_file: Optional[Path] = typer.Option(None, "--from", help="The corrected code (instead of opening $EDITOR)."),
+               schema: Optional[Path] = typer.Option(None, "--schema", help="A JSON Schema of the arguments to use instead of the attempt's."),
                executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
                seed: int = typer.Option(0, "--seed"),
                as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
@@ -456,13 +457,15 @@ def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt
 
     Opens the tool's best attempt (verified or not) in $VISUAL or $EDITOR, or takes --from FILE; the result is
     stored as verified only if every drafting and held-out example passes."""
-    from .handfinish import open_in_editor, read_code, work_from_tool
+    from .handfinish import open_in_editor, read_code, with_schema, work_from_tool
     from .store import ToolStore
 
     with ToolStore() as store:
         tool = store.get(name)
     assert tool is not None
     work = work_from_tool(tool)
+    if schema is not None:
+        work = with_schema(work, schema)
     code = read_code(from_file) if from_file is not None else open_in_editor(tool)
     where = str(from_file) if from_file is not None else "the edited code"
     _check_by_hand(work, code, where, "edited by hand", executor_name, seed, as_json, base=tool.provenance)

@@ -131,6 +131,17 @@ def work_from_tool(tool: Tool) -> HandWork:
                     source=tool.provenance.family_file)
 
 
+def with_schema(work: HandWork, schema_file: Path) -> HandWork:
+    """The same examples under a schema a person wrote (say, a pattern for codes the executor must copy whole);
+    every drafting example's arguments must fit it."""
+    schema = read_schema(schema_file)
+    for ex, args in zip(work.drafting, work.objects):
+        problem = schema_problem(schema, args)
+        if problem:
+            raise InputError(f"{schema_file}: drafting example {ex.id}: {problem}")
+    return work.model_copy(update={"schema_": schema})
+
+
 def edit_text(tool: Tool) -> str:
     """The file a person edits: what the tool must do, as comments above a marker, then its code."""
     lines = [f"# Tool '{tool.name}': {tool.description}",
@@ -232,4 +243,4 @@ def work_from_family(examples: Path, schema_file: Path | None, name: str | None,
 
 
 __all__ = ["HandReport", "HandWork", "check_by_hand", "work_from_tool", "work_from_family", "edit_text",
-           "open_in_editor", "read_code", "screen_or_fail", "strip_header", "EDIT_MARK"]
+           "open_in_editor", "read_code", "screen_or_fail", "strip_header", "with_schema", "EDIT_MARK"]
