@@ -409,7 +409,7 @@ def tools_retire(name: str) -> None:
 # ---- tools finished by hand -----------------------------------------------------------------------------------
 
 def _hand_table(report) -> Table:
-    t = Table(title=f"Checks of '{report.tool}' ({report.origin})")
+    t = screen_table(f"Checks of '{report.tool}' ({report.origin})")
     for c in ("id", "split", "expected", "got", "ok"):
         t.add_column(c)
     for c in report.checks:
@@ -748,7 +748,7 @@ def suggest_cmd(answers: Path = typer.Argument(..., help="An answers file writte
     if as_json:
         out.print_json(result.model_dump_json())
         return
-    t = Table(title=f"Unanswered questions in {answers}: {result.unanswered}")
+    t = screen_table(f"Unanswered questions in {answers}: {result.unanswered}")
     for c in ("folder", "questions", "shared words", "e.g."):
         t.add_column(c, overflow="fold")
     for g in result.groups:
