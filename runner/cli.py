@@ -450,6 +450,7 @@ def _check_by_hand(work, code: str, where: str, origin: str, executor_name: Opti
 def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt, verified or not)."),
                from_file: Optional[Path] = typer.Option(None, "--from", help="The corrected code (instead of opening $EDITOR)."),
                schema: Optional[Path] = typer.Option(None, "--schema", help="A JSON Schema of the arguments to use instead of the attempt's."),
+               examples: Optional[Path] = typer.Option(None, "--examples", help="Check against this family file instead of the examples recorded in the tool."),
                executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
                seed: int = typer.Option(0, "--seed"),
                as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
@@ -463,7 +464,7 @@ def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt
     with ToolStore() as store:
         tool = store.get(name)
     assert tool is not None
-    work = work_from_tool(tool)
+    work = work_from_tool(tool, examples)
     if schema is not None:
         work = with_schema(work, schema)
     code = read_code(from_file) if from_file is not None else open_in_editor(tool)

@@ -117,13 +117,26 @@ def check_by_hand(work: HandWork, code: str, origin: Origin, *, executor: ChatMo
 
 # ---- tools edit -----------------------------------------------------------------------------------------------
 
-def work_from_tool(tool: Tool) -> HandWork:
-    """The examples a stored tool was checked on, read back from its record (the family file may have moved)."""
+def work_from_tool(tool: Tool, examples: Path | None = None) -> HandWork:
+    """The examples a stored tool was checked on, read back from its record (the family file may have moved);
+    or, given a family file, its lines: those whose question is one of the card's demos are the drafting
+    examples (with the demo's arguments), the rest are held out."""
+    if examples is not None:
+        family = load_family(examples)
+        demos = {d.question: d.arguments for d in tool.card.demos}
+        drafting_ex = [e for e in family.examples if e.question in demos]
+        held_ex = [e for e in family.examples if e.question not in demos]
+        if not drafting_ex or not held_ex:
+            why = ("no line asks one of the usage card's demo questions" if not drafting_ex
+                   else "every line is a demo question; none is left to hold out")
+            raise InputError(f"{examples}: {why}")
+        return HandWork(name=tool.name, description=tool.description, schema_=tool.card.schema_, drafting=drafting_ex,
+                        objects=[demos[e.question] for e in drafting_ex], held_out=held_ex, source=str(examples))
     drafting = [c for c in tool.checks if c.split == "draft" and c.arguments is not None]
     held = [c for c in tool.checks if c.split == "held_out"]
     if not drafting or not held:
         raise InputError(f"tool '{tool.name}' records no {'drafting' if not drafting else 'held-out'} examples "
-                         "to check an edit against; use `jigwright tools adopt` with its family file instead")
+                         "to check an edit against; give its family file with --examples")
     return HandWork(name=tool.name, description=tool.description, schema_=tool.card.schema_,
                     drafting=[Example(id=c.id, question=c.question, answer=c.expected) for c in drafting],
                     objects=[c.arguments for c in drafting if c.arguments is not None],
