@@ -454,7 +454,7 @@ def tools_edit(name: str = typer.Argument(..., help="Tool name (its best attempt
                executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
                seed: int = typer.Option(0, "--seed"),
                as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
-    """Finish a tool by hand, then check it end to end as a build does.
+    """Finish a tool by hand and check it.
 
     Opens the tool's best attempt (verified or not) in $VISUAL or $EDITOR, or takes --from FILE; the result is
     stored as verified only if every drafting and held-out example passes."""
@@ -481,7 +481,10 @@ def tools_adopt(code_file: Path = typer.Argument(..., help="Python file defining
                 executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
                 seed: int = typer.Option(0, "--seed"),
                 as_json: bool = typer.Option(False, "--json", help="The checks as JSON on stdout.")) -> None:
-    """Take in a tool written from scratch and check it end to end as a build does."""
+    """Take in a tool written by hand.
+
+    The tool is checked end to end as a build checks its own: lines of the family file with 'arguments' are
+    the drafting examples and the usage card's demos, the rest are held out."""
     from .handfinish import read_code, work_from_family
 
     work = work_from_family(examples, schema, name, description)
@@ -741,8 +744,11 @@ def suggest_cmd(answers: Path = typer.Argument(..., help="An answers file writte
                 threshold: float = typer.Option(THRESHOLD, "--threshold", min=0.05, max=1.0,
                                                 help="Cosine distance at which groups stop merging (lower: more, tighter groups)."),
                 as_json: bool = typer.Option(False, "--json", help="The groups as JSON on stdout.")) -> None:
-    """Group the questions no tool answered by similarity and write a family folder for each large group:
-    examples with empty answers for a person to fill in, and a family.toml stub with a suggested name."""
+    """Suggest new families from unanswered questions.
+
+    Groups the questions no tool answered (routed to none, or fell back) by similarity and writes a family
+    folder for each group of at least --min-group: examples with empty answers for a person to fill in, a
+    family.toml stub with a suggested name, and the group's questions as a queue."""
     from .suggest import suggest
 
     result = suggest(answers, out_dir, min_group=min_group, threshold=threshold)
