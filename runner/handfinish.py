@@ -21,7 +21,7 @@ from pydantic import BaseModel
 from . import prompts, shapecheck
 from .build import Example, drafting_checks, fill_examples, held_out_checks, load_family, make_card
 from .errors import InputError
-from .execute import EXECUTOR_TEMPLATE, schema_problem
+from .execute import EXECUTOR_TEMPLATE, REL_TOL, schema_problem
 from .llm import ChatModel
 from .meter import Usage
 from .sandbox import screen
@@ -58,6 +58,7 @@ class HandWork(BaseModel):
     objects: list[dict[str, Any]]
     held_out: list[Example]
     source: str  # where the examples came from (a family file, or the tool they were recorded in)
+    rel_tol: float = REL_TOL  # relative tolerance for float answers, as the family file sets it
 
 
 def screen_or_fail(code: str, where: str) -> None:
@@ -77,7 +78,7 @@ def check_by_hand(work: HandWork, code: str, origin: Origin, *, executor: ChatMo
     screen_or_fail(code, "the tool's code")
     card = make_card(work.name, work.description, work.schema_, work.drafting, work.objects)
     note(f"running the {len(work.drafting)} drafting examples in the sandbox")
-    drafted = drafting_checks(sandbox, code, work.drafting, work.objects)
+    drafted = drafting_checks(sandbox, code, work.drafting, work.objects, rel_tol=work.rel_tol)
     usage = Usage()
 
     def after(ex: Example, filled: Any) -> None:
@@ -86,7 +87,7 @@ def check_by_hand(work: HandWork, code: str, origin: Origin, *, executor: ChatMo
 
     fills = fill_examples(executor, card, work.held_out, seed=seed, after=after,
                           before=lambda i: note(f"executor fills held-out {i + 1}/{len(work.held_out)}"))
-    held = held_out_checks(sandbox, code, work.held_out, fills)
+    held = held_out_checks(sandbox, code, work.held_out, fills, rel_tol=work.rel_tol)
     checks = drafted + held
     verified = all(c.ok for c in checks)
     examples_sha = hashlib.sha256(json.dumps([e.model_dump(exclude={"line"}) for e in work.drafting + work.held_out],
@@ -131,7 +132,8 @@ def work_from_tool(tool: Tool, examples: Path | None = None) -> HandWork:
                    else "every line is a demo question; none is left to hold out")
             raise InputError(f"{examples}: {why}")
         return HandWork(name=tool.name, description=tool.description, schema_=tool.card.schema_, drafting=drafting_ex,
-                        objects=[demos[e.question] for e in drafting_ex], held_out=held_ex, source=str(examples))
+                        objects=[demos[e.question] for e in drafting_ex], held_out=held_ex, source=str(examples),
+                        rel_tol=family.rel_tol)
     drafting = [c for c in tool.checks if c.split == "draft" and c.arguments is not None]
     held = [c for c in tool.checks if c.split == "held_out"]
     if not drafting or not held:
@@ -252,7 +254,7 @@ def work_from_family(examples: Path, schema_file: Path | None, name: str | None,
             raise InputError(f"{examples}: the 'arguments' objects do not share one shape, so no schema can be "
                              "inferred; make them alike or give --schema FILE") from None
     return HandWork(name=family.name, description=family.description or family.name, schema_=schema,
-                    drafting=drafting, objects=objects, held_out=held, source=family.source)
+                    drafting=drafting, objects=objects, held_out=held, source=family.source, rel_tol=family.rel_tol)
 
 
 __all__ = ["HandReport", "HandWork", "check_by_hand", "work_from_tool", "work_from_family", "edit_text",

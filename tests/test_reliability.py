@@ -175,7 +175,7 @@ def test_lone_surrogates_and_invalid_bytes_are_bad_lines_and_the_queue_goes_on(t
 @pytest.mark.parametrize("data,msg", [
     (b'{"question": "a?", "answer": 1}\n{"question": "b\xff?", "answer": 2}\n',
      r"fam\.jsonl:2: not valid UTF-8: byte 0xff at byte 16 of the line"),
-    (b'{"question": "a?", "answer": 1}\n{"question": "b?", "answer": null}\n', r"fam\.jsonl:2: 'answer' is null"),
+    (b'{"question": "a?", "answer": 1}\n{"question": "b?", "answer": null}\n', r"fam\.jsonl: line 2 has an empty answer"),
     (b'{"question": "a?", "answer": 1}\n{"question": "b\\ud800?", "answer": 2}\n', r"fam\.jsonl:2: .*lone surrogate"),
 ])
 def test_family_files_name_the_line_of_bad_bytes_null_answers_and_surrogates(tmp_path, data, msg):
