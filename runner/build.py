@@ -17,7 +17,7 @@ from typing import Any, Callable, Iterator
 
 from pydantic import BaseModel, Field, ValidationError
 
-from . import prompts, shapecheck
+from . import prompts, readwords, shapecheck
 from .errors import InputError
 from .execute import Filled, answers_match, fill_arguments, normalise
 from .llm import ChatModel, Message
@@ -124,10 +124,13 @@ def load_family(path: Path, name: str | None = None, description: str | None = N
 # ---- settings and report ----------------------------------------------------------------------------------
 
 class BuildSettings(BaseModel):
-    """Knobs of one build; all but the CPU budget are part of the cache key (the budget only decides when to
-    stop sampling, so a tool built under one budget is the same tool under another)."""
+    """Knobs of one build. Without a CPU budget a build makes one round (each step sampled once as set here);
+    with one it keeps sampling round after round (more shapes, more drafts, every strategy again) until a tool
+    verifies, the budget is used up or `max_rounds` rounds are done. Sampling is seeded, so the build under a
+    smaller budget is a prefix of the build under a larger one."""
 
     draft_examples: int = 3
+    choose_examples: int = 3
     shape_samples: int = 4
     draft_samples: int = 3
     repair_rounds: int = 1
@@ -136,6 +139,7 @@ class BuildSettings(BaseModel):
     seed: int = 0
     strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
     min_score: float = 1.0
+    max_rounds: int = 12
     budget_cpu_minutes: float | None = None
 
 
@@ -154,10 +158,18 @@ class BuildReport(BaseModel):
     key: str
     cache_hit: bool = False
     verified: bool = False
-    held_out_score: float = 0.0
-    held_out: int = 0
+    held_out_score: float = 0.0  # on the confirm examples: the score that decides "verified"
+    held_out: int = 0  # how many confirm examples
+    choose_score: float = 0.0  # the stored candidate's score on the choose examples
+    roles: dict[str, list[str]] = Field(default_factory=dict)  # draft / choose / confirm: example ids
+    check_note: str = ""  # set when the examples are too few for three separate parts
     strategy: str = ""
     steps: dict[str, StepCost] = Field(default_factory=lambda: {s: StepCost() for s in STEPS})
+    rounds: int = 0
+    chosen: int = 0  # candidates that passed every choose example
+    confirmed: int = 0  # candidates that went on to pass every confirm example too
+    failed_at: str = ""  # where the best attempt failed: shape, draft, repair, fill, choose, confirm ("" if verified)
+    verified_cpu: float | None = None  # total CPU seconds when a candidate first verified
     stopped: str = ""
     failures: list[str] = Field(default_factory=list)
 
@@ -191,6 +203,8 @@ class ShapeCandidate:
     problems: list[str]
     schema: dict[str, Any] | None = None
     answer_from: str = ""  # where a text answer sits in every drafting example's arguments ("" if nowhere)
+    raw: list[dict[str, Any]] | None = None  # as copied from the questions, before declared conversions
+    conversions: dict[str, str] = field(default_factory=dict)  # argument path -> conversion kind
 
 
 @dataclass
@@ -202,11 +216,13 @@ class Candidate:
     draft_ok: int = 0
     feedback: str = ""
     checks: list[ExampleCheck] = field(default_factory=list)
-    score: float = -1.0
+    score: float = -1.0  # on the choose examples
+    confirm_score: float = -1.0  # on the confirm examples (-1 until it gets there)
+    failed_at: str = "unverified"
 
     @property
     def sort_key(self) -> tuple:
-        return (-self.score, -self.draft_ok, len(self.code))
+        return (bool(self.failed_at), -self.score, -self.confirm_score, -self.draft_ok, len(self.code))
 
 
 def extract_code(text: str) -> str:
@@ -321,6 +337,33 @@ class BudgetExhausted(Exception):
     pass
 
 
+def split_examples(examples: list[Example], draft_n: int, choose_n: int
+                   ) -> tuple[list[Example], list[Example], list[Example], str]:
+    """The examples in three parts, in file order: draft (shown to the builder), choose (pick among candidates)
+    and confirm (only a candidate that also passes these is verified). With too few examples for three parts
+    the choose examples also confirm, and the note says the check is weaker."""
+    d = min(draft_n, len(examples) - 1)
+    draft, rest = examples[:d], examples[d:]
+    if len(rest) >= 4:
+        c = min(choose_n, len(rest) // 2)
+        choose, confirm = rest[:c], rest[c:]
+        note = "" if c >= 3 and len(confirm) >= 3 else (
+            f"weaker check: {len(choose)} example(s) chose among candidates and {len(confirm)} confirmed "
+            f"(9 examples give 3 to draft, 3 to choose and 3 to confirm)")
+        return draft, choose, confirm, note
+    return draft, rest, rest, (f"weaker check: the same {len(rest)} example(s) chose among candidates and "
+                               f"confirmed the tool (9 examples give 3 to draft, 3 to choose and 3 to confirm)")
+
+
+def fill_suspect(example: Example, arguments: dict[str, Any] | None) -> bool:
+    """Whether a miss looks like the executor's fault: no argument object, or one that leaves out or invents a
+    number or name the question states (the same mechanical checks the shape step uses)."""
+    if arguments is None:
+        return True
+    problems = shapecheck.shape_problems([example.question], [example.answer], [arguments])
+    return any("missing" in p or "not in the question" in p for p in problems)
+
+
 class Builder:
     """One build of one family. Models, sandbox and store are given, so tests can pass doubles of the models."""
 
@@ -332,12 +375,23 @@ class Builder:
         self.settings = settings
         self.builder_sha, self.executor_sha = builder_sha, executor_sha
         self.progress = progress or (lambda step, note: None)
-        n = min(settings.draft_examples, len(family.examples) - 1)
-        self.drafting = family.examples[:n]
-        self.held_out = family.examples[n:]
+        self.drafting, self.choosing, self.confirming, note = split_examples(
+            family.examples, settings.draft_examples, settings.choose_examples)
+        self.shared_check = self.choosing is self.confirming
         self.key = build_key(family, builder_sha, executor_sha, settings)
-        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out))
+        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.confirming),
+                                  check_note=note,
+                                  roles={"draft": [e.id for e in self.drafting], "choose": [e.id for e in self.choosing],
+                                         "confirm": [e.id for e in self.confirming]})
         self._seed = settings.seed
+        self._seen_shapes: set[str] = set()
+        self._fills: dict[tuple[str, str], list[Filled]] = {}
+        self._reached = ""  # the furthest step any attempt reached
+
+    # kept for callers that still speak of one held-out part
+    @property
+    def held_out(self) -> list[Example]:
+        return self.confirming
 
     # -- accounting
     def _next_seed(self) -> int:
@@ -375,49 +429,67 @@ class Builder:
         return msgs + [{"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
                                                                   questions=questions)}]
 
-    def shapes(self) -> Iterator[ShapeCandidate]:
-        """Sampled argument designs, checked mechanically. Proposals with no problem are yielded as they come;
-        once all samples are drawn, those with only soft problems follow, fewest problems first.
+    def shapes(self, round_: int = 0) -> Iterator[ShapeCandidate]:
+        """Sampled argument designs, mechanically repaired (pieces joined, extra fields dropped, keys that name
+        one field differently unified, values written as words read as numbers) and checked. Proposals with no
+        problem are yielded as they come; once this round's samples are drawn, those with only soft problems
+        follow, fewest problems first. A design seen in an earlier round is not yielded again.
 
         No grammar here: measured on this machine, a free-form JSON grammar made the 1.5B builder several
         times slower per token, while with the worked demonstration it writes valid JSON anyway."""
         msgs = self.shape_messages()
         budget = 100 + sum(len(e.question) for e in self.drafting)  # JSON of times and dates runs long
-        seen: set[str] = set()
         questions = [e.question for e in self.drafting]
         answers = [e.answer for e in self.drafting]
-        soft: list[tuple[int, int, list[dict[str, Any]]]] = []
-        for i in range(self.settings.shape_samples):
-            self.progress("shape", f"sample {i + 1}/{self.settings.shape_samples}")
-            temp = 0.2 if i == 0 else self.settings.temperature
+        soft: list[tuple[int, int, ShapeCandidate]] = []
+        n = self.settings.shape_samples
+        for i in range(n):
+            label = f"{round_ * n + i + 1}"
+            self.progress("shape", f"sample {label}" + (f" (round {round_ + 1})" if round_ else f"/{n}"))
+            temp = 0.2 if (i == 0 and round_ == 0) else self.settings.temperature
             text = self._ask_builder("shape", msgs, temperature=temp, max_tokens=budget)
             self.report.steps["shape"].tried += 1
             objects = parse_arguments_reply(text)
             if objects is None:
-                self.report.failures.append(f"shape {i + 1}: reply is not the expected JSON")
+                self.report.failures.append(f"shape {label}: reply is not the expected JSON")
                 continue
-            objects = shapecheck.prune_extras(questions, answers, shapecheck.merge_pieces(len(questions), objects))
-            sig = json.dumps(objects, sort_keys=True)
-            if sig in seen:
+            objects = shapecheck.merge_pieces(len(questions), objects)
+            objects = shapecheck.unify_keys(objects)
+            raw, converted, conversions = readwords.convert_objects(objects)
+            checked_questions = readwords.convert_questions(questions, raw, converted)
+            converted = shapecheck.prune_extras(checked_questions, answers, converted)
+            if conversions:
+                raw = [{k: v for k, v in r.items() if k in c} for r, c in zip(raw, converted)]
+            else:
+                raw = converted
+            sig = json.dumps(converted, sort_keys=True)
+            if sig in self._seen_shapes:
                 continue
-            seen.add(sig)
-            problems = shapecheck.shape_problems(questions, answers, objects)
+            self._seen_shapes.add(sig)
+            problems = shapecheck.shape_problems(checked_questions, answers, converted)
+            self.trace({"step": "shape-check", "arguments": converted, "conversions": conversions,
+                        "problems": problems})
             if problems:
-                self.report.failures.append(f"shape {i + 1}: " + "; ".join(problems[:3]))
+                self.report.failures.append(f"shape {label}: " + "; ".join(problems[:3]))
                 if not any(shapecheck.is_hard(p) for p in problems):
-                    soft.append((len(problems), i, objects))
+                    soft.append((len(problems), i, self.shape_candidate(converted, [f"{len(problems)} soft"],
+                                                                        raw, conversions)))
                 continue
             self.report.steps["shape"].passed += 1
-            yield self.shape_candidate(objects, [])
-        for n_problems, i, objects in sorted(soft, key=lambda t: (t[0], t[1])):
-            self.progress("shape", f"trying sample {i + 1} despite {n_problems} soft problem(s)")
-            yield self.shape_candidate(objects, [f"{n_problems} soft"])
+            yield self.shape_candidate(converted, [], raw, conversions)
+        for n_problems, i, cand in sorted(soft, key=lambda t: (t[0], t[1])):
+            self.progress("shape", f"trying a design despite {n_problems} soft problem(s)")
+            yield cand
 
-    def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str]) -> ShapeCandidate:
-        """An argument design ready to draft from: its inferred schema and where a text answer sits in it."""
+    def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str],
+                        raw: list[dict[str, Any]] | None = None,
+                        conversions: dict[str, str] | None = None) -> ShapeCandidate:
+        """An argument design ready to draft from: its inferred schema (loosened where values are converted,
+        since the executor copies them as written) and where a text answer sits in it."""
         answer_from = next(iter(shapecheck.answer_paths(objects, [e.answer for e in self.drafting])), "")
-        return ShapeCandidate(objects=objects, problems=problems, schema=shapecheck.infer_schema(objects),
-                              answer_from=answer_from)
+        schema = readwords.loosen_schema(shapecheck.infer_schema(objects), conversions or {})
+        return ShapeCandidate(objects=objects, problems=problems, schema=schema, answer_from=answer_from,
+                              raw=raw, conversions=dict(conversions or {}))
 
     # -- draft and repair
     def draft_messages(self, shape: ShapeCandidate, strategy: str) -> list[Message]:
@@ -437,6 +509,8 @@ class Builder:
             code = code.rstrip() + "\n" + SEARCH_SOLVE
         elif strategy == "choose":
             code = code.rstrip() + "\n" + CHOOSE_SOLVE.replace("PATH", repr(shape.answer_from))
+        if shape.conversions:
+            code = readwords.wrap_tool(code, shape.conversions)
         return code
 
     def check_on_drafting(self, cand: Candidate, shape: ShapeCandidate) -> None:
@@ -461,12 +535,13 @@ class Builder:
         self.trace({"step": "check", "strategy": cand.strategy, "passed": cand.draft_ok,
                     "of": len(self.drafting), "feedback": cand.feedback})
 
-    def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
+    def draft(self, shape: ShapeCandidate, strategy: str, round_: int = 0) -> list[Candidate]:
         msgs = self.draft_messages(shape, strategy)
         out = []
         for i in range(self.settings.draft_samples):
-            self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}")
-            temp = 0.2 if i == 0 else self.settings.temperature
+            self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}"
+                          + (f" (round {round_ + 1})" if round_ else ""))
+            temp = 0.2 if (i == 0 and round_ == 0) else self.settings.temperature
             text = self._ask_builder("draft", msgs, temperature=temp, max_tokens=400)
             cand = Candidate(strategy=strategy, code=self.assemble(strategy, text, shape), messages=msgs, reply=text)
             self.check_on_drafting(cand, shape)
@@ -492,86 +567,161 @@ class Builder:
                 break
         return fixed
 
-    # -- verify
+    # -- verify: choose among candidates, then confirm
     def card(self, shape: ShapeCandidate) -> Card:
         assert shape.schema is not None
         return Card(name=self.family.name, description=self.family.description or self.family.name,
                     schema=shape.schema, demos=[Demo(question=e.question, arguments=a)
-                                                for e, a in zip(self.drafting, shape.objects)])
+                                                for e, a in zip(self.drafting, shape.raw or shape.objects)])
 
-    def fill_held_out(self, card: Card) -> list[Filled]:
-        fills = []
-        for i, ex in enumerate(self.held_out):
-            self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}")
-            filled = fill_arguments(self.executor, card, ex.question, seed=self.settings.seed)
-            self._charge("verify", filled.usage, "executor")
-            self.trace({"step": "fill", "question": ex.question, "arguments": filled.arguments,
-                        "error": filled.error, "usage": filled.usage.model_dump()})
-            fills.append(filled)
-        return fills
+    def fills_for(self, part: str, examples: list[Example], shape: ShapeCandidate, card: Card) -> list[Filled]:
+        """The executor's arguments for one part's questions under one argument design (filled once, kept)."""
+        key = (part, json.dumps(shape.objects, sort_keys=True))
+        if key not in self._fills:
+            fills = []
+            for i, ex in enumerate(examples):
+                self.progress("verify", f"executor fills {part} example {i + 1}/{len(examples)}")
+                filled = fill_arguments(self.executor, card, ex.question, seed=self.settings.seed)
+                self._charge("verify", filled.usage, "executor")
+                self.trace({"step": "fill", "part": part, "question": ex.question, "arguments": filled.arguments,
+                            "error": filled.error, "usage": filled.usage.model_dump()})
+                fills.append(filled)
+            self._fills[key] = fills
+        return self._fills[key]
 
-    def verify(self, cand: Candidate, shape: ShapeCandidate, fills: list[Filled]) -> None:
-        checks = [ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
-                               got=e.answer, ok=True) for e, a in zip(self.drafting, shape.objects)]
-        ok = 0
-        for ex, filled in zip(self.held_out, fills):
+    def score(self, cand: Candidate, part: str, examples: list[Example], fills: list[Filled]
+              ) -> tuple[float, list[ExampleCheck], int]:
+        """The candidate on one part's examples with executor-filled arguments: (score, checks, misses that look
+        like the executor's fault)."""
+        checks, ok, fill_misses = [], 0, 0
+        for ex, filled in zip(examples, fills):
             if filled.arguments is None:
-                checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+                checks.append(ExampleCheck(id=ex.id, split=part, question=ex.question, expected=ex.answer,
                                            ok=False, error=filled.error))
+                fill_misses += 1
                 continue
             res = self.sandbox.run(cand.code, filled.arguments)
             good = res.status == "ok" and answers_match(ex.answer, res.value)
             ok += good
-            checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+            if not good and fill_suspect(ex, filled.arguments):
+                fill_misses += 1
+            checks.append(ExampleCheck(id=ex.id, split=part, question=ex.question, expected=ex.answer,
                                        arguments=filled.arguments, got=res.value if res.status == "ok" else None,
                                        ok=good, error=None if res.status == "ok" else res.message))
-        self.report.steps["verify"].tried += 1
-        cand.checks = checks
-        cand.score = ok / len(self.held_out) if self.held_out else 0.0
-        self.trace({"step": "verified", "strategy": cand.strategy, "score": cand.score,
+        score = ok / len(examples) if examples else 0.0
+        self.trace({"step": part, "strategy": cand.strategy, "score": score,
                     "misses": [c.model_dump() for c in checks if not c.ok]})
-        if cand.score >= self.settings.min_score:
-            self.report.steps["verify"].passed += 1
+        return score, checks, fill_misses
+
+    def verify(self, cand: Candidate, shape: ShapeCandidate, card: Card) -> None:
+        """Choose, then confirm: a candidate is verified only if it passes every choose example and then every
+        confirm example (with few examples the two parts are the same examples; the report says so)."""
+        draft_checks = [ExampleCheck(id=e.id, split="draft", question=e.question, expected=e.answer, arguments=a,
+                                     got=e.answer, ok=True) for e, a in zip(self.drafting, shape.objects)]
+        self.report.steps["verify"].tried += 1
+        fills = self.fills_for("choose", self.choosing, shape, card)
+        cand.score, checks, fill_misses = self.score(cand, "choose", self.choosing, fills)
+        cand.checks = draft_checks + checks
+        if cand.score < self.settings.min_score:
+            misses = sum(not c.ok for c in checks)
+            cand.failed_at = "fill" if fill_misses and fill_misses * 2 >= misses else "choose"
+            return
+        self.report.chosen += 1
+        if self.shared_check:
+            cand.confirm_score = cand.score
+        else:
+            fills = self.fills_for("confirm", self.confirming, shape, card)
+            cand.confirm_score, checks, fill_misses = self.score(cand, "confirm", self.confirming, fills)
+            cand.checks += checks
+            if cand.confirm_score < self.settings.min_score:
+                misses = sum(not c.ok for c in checks)
+                cand.failed_at = "fill" if fill_misses and fill_misses * 2 >= misses else "confirm"
+                return
+        self.report.confirmed += 1
+        self.report.steps["verify"].passed += 1
+        cand.failed_at = ""
 
     # -- the whole build
+    def try_shape(self, shape: ShapeCandidate, round_: int, best: list) -> bool:
+        """Every strategy that fits this design: draft, repair the closest misses, verify what passes. True once a
+        candidate verifies; `best` holds the best (candidate, shape, card) so far."""
+        card = self.card(shape)
+        n = len(self.drafting)
+        for strategy in applicable_strategies(self.settings.strategies, shape.objects,
+                                              [e.answer for e in self.drafting]):
+            cands = self.draft(shape, strategy, round_)
+            self._reach("draft")
+            failing = sorted((c for c in cands if c.draft_ok < n), key=lambda c: (-c.draft_ok, len(c.code)))
+            passing = [c for c in cands if c.draft_ok == n]
+            if not passing:
+                for c in failing[: self.settings.repairs_per_strategy]:
+                    self._reach("repair")
+                    fixed = self.repair(c, shape)
+                    if fixed.draft_ok == n:
+                        passing.append(fixed)
+                        break
+                    failing.append(fixed)
+            if not passing:
+                failing.sort(key=lambda c: (-c.draft_ok, len(c.code)))
+                self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback.splitlines()[0]}"
+                                            if failing and failing[0].feedback else f"{strategy}: no candidates")
+                continue
+            for c in _dedupe(passing):
+                if c.code in self._verified_codes:
+                    continue
+                self._verified_codes.add(c.code)
+                self.verify(c, shape, card)
+                self._reach(c.failed_at or "confirm")
+                if not best or c.sort_key < best[0][0].sort_key:
+                    best[:] = [(c, shape, card)]
+                if not c.failed_at:
+                    return True
+            if best:
+                bad = [ch for ch in best[0][0].checks if not ch.ok]
+                if bad:
+                    self.report.failures.append(
+                        f"{strategy}: {bad[0].split} {best[0][0].score:.2f}; e.g. {bad[0].id}: expected "
+                        f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip())
+        return False
+
+    _ORDER = ("shape", "draft", "repair", "fill", "choose", "confirm")
+
+    def _reach(self, step: str) -> None:
+        if self._ORDER.index(step) > (self._ORDER.index(self._reached) if self._reached else -1):
+            self._reached = step
+
     def run(self) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
-        best: tuple[Candidate, ShapeCandidate, Card] | None = None
+        """Round after round while the budget lasts: new shape samples (tried as they come), then more drafts
+        for every design found earlier. Without a budget, one round."""
+        best: list = []
+        self._verified_codes: set[str] = set()
+        pool: list[ShapeCandidate] = []
+        rounds = self.settings.max_rounds if self.settings.budget_cpu_minutes is not None else 1
+        self._reach("shape")
         try:
-            for shape in self.shapes():
-                card = self.card(shape)
-                fills: list[Filled] | None = None
-                for strategy in applicable_strategies(self.settings.strategies, shape.objects,
-                                                      [e.answer for e in self.drafting]):
-                    cands = self.draft(shape, strategy)
-                    failing = sorted((c for c in cands if c.draft_ok < len(self.drafting)),
-                                     key=lambda c: (-c.draft_ok, len(c.code)))
-                    passing = [c for c in cands if c.draft_ok == len(self.drafting)]
-                    if not passing:
-                        for c in failing[: self.settings.repairs_per_strategy]:
-                            fixed = self.repair(c, shape)
-                            if fixed.draft_ok == len(self.drafting):
-                                passing.append(fixed)
-                                break
-                    if not passing:
-                        self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback.splitlines()[0]}"
-                                                    if failing else f"{strategy}: no candidates")
-                        continue
-                    if fills is None:
-                        fills = self.fill_held_out(card)
-                    for c in _dedupe(passing):
-                        self.verify(c, shape, fills)
-                        if best is None or c.sort_key < best[0].sort_key:
-                            best = (c, shape, card)
-                    if best and best[0].score >= self.settings.min_score:
-                        return best
-                    if best:
-                        bad = [ch for ch in best[0].checks if not ch.ok]
-                        self.report.failures.append(
-                            f"{strategy}: held-out {best[0].score:.2f}; e.g. {bad[0].id}: expected "
-                            f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip() if bad else "")
+            for r in range(rounds):
+                self.report.rounds = r + 1
+                old = list(pool)
+                for shape in self.shapes(r):
+                    pool.append(shape)
+                    if self.try_shape(shape, r, best):
+                        return self._finish(best)
+                for shape in old:
+                    self.progress("draft", f"round {r + 1}: more drafts for an earlier design")
+                    if self.try_shape(shape, r, best):
+                        return self._finish(best)
         except BudgetExhausted as exc:
             self.report.stopped = str(exc)
-        return best if best else (None, None, None)
+        return self._finish(best)
+
+    def _finish(self, best: list) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
+        if best and not best[0][0].failed_at:
+            self.report.verified_cpu = self.report.total_cpu
+            self.report.failed_at = ""
+        else:
+            self.report.failed_at = best[0][0].failed_at if best else (
+                self._reached if self._reached in ("draft", "repair") else "shape")
+        return best[0] if best else (None, None, None)
 
 
 def _dedupe(cands: list[Candidate]) -> list[Candidate]:
@@ -606,12 +756,13 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
         report.verified = False
         store.put_failed(b.key, report.model_dump_json())
         return None, report
-    report.verified = cand.score >= settings.min_score
-    report.held_out_score = cand.score
+    report.verified = not cand.failed_at
+    report.held_out_score = max(cand.confirm_score, 0.0)
+    report.choose_score = max(cand.score, 0.0)
     report.strategy = cand.strategy
     report.steps["card"].tried = report.steps["card"].passed = 1
     tool = Tool(key=b.key, name=family.name, description=card.description, code=cand.code, card=card,
-                verified=report.verified, held_out_score=cand.score, checks=cand.checks,
+                verified=report.verified, held_out_score=report.held_out_score, checks=cand.checks,
                 provenance=Provenance(builder_model=getattr(builder, "name", "?"), builder_sha256=builder_sha,
                                       executor_model=getattr(executor, "name", "?"), executor_sha256=executor_sha,
                                       template_hashes=prompts.template_hash(*TEMPLATES),

@@ -352,3 +352,58 @@ def prune_extras(questions: list[str], answers: list[Any], objects: list[Any]) -
         else:
             break
     return best
+
+
+def _unify_level(objects: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Rename keys so that objects name one field alike: an object whose keys differ from the most common key
+    set only in names, each odd key matching exactly one missing key by the shape of its value, takes the
+    common names (order kept as in the common set)."""
+    counts: dict[tuple, int] = {}
+    for o in objects:
+        counts[tuple(sorted(o))] = counts.get(tuple(sorted(o)), 0) + 1
+    common = max(counts, key=lambda k: (counts[k], -len(k)))
+    if counts[common] < 2 and len(objects) > 2:
+        return objects
+    model = next(o for o in objects if tuple(sorted(o)) == common)
+    out = []
+    for o in objects:
+        odd = [k for k in o if k not in common]
+        missing = [k for k in model if k not in o]
+        if not odd or len(odd) != len(missing) or len(o) != len(model):
+            out.append(o)
+            continue
+        rename: dict[str, str] = {}
+        for k in odd:
+            fits = [m for m in missing if m not in rename.values()
+                    and _merge(shape_of(o[k]), shape_of(model[m]), loose=True) is not None]
+            if len(fits) != 1:
+                rename = {}
+                break
+            rename[k] = fits[0]
+        if not rename:
+            out.append(o)
+            continue
+        renamed = {rename.get(k, k): v for k, v in o.items()}
+        out.append({k: renamed[k] for k in model})
+    return out
+
+
+def unify_keys(objects: list[Any]) -> list[Any]:
+    """Mechanical repair: the same field named differently in different questions (one question's list under
+    one word, the next under another) gets one name; also for the objects inside lists. Only where the match is
+    unambiguous; anything else is left for the shape checks to judge."""
+    if len(objects) < 2 or not all(isinstance(o, dict) and o for o in objects):
+        return objects
+    objects = _unify_level(objects)
+    keys = {k for o in objects for k in o}
+    for key in keys:
+        items = [(i, j) for i, o in enumerate(objects) if isinstance(o.get(key), list)
+                 for j, it in enumerate(o[key]) if isinstance(it, dict) and it]
+        if len(items) < 2:
+            continue
+        fixed = _unify_level([objects[i][key][j] for i, j in items])
+        objects = [dict(o) for o in objects]
+        for (i, j), it in zip(items, fixed):
+            objects[i][key] = list(objects[i][key])
+            objects[i][key][j] = it
+    return objects

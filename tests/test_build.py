@@ -106,7 +106,7 @@ def test_happy_path_stores_verified_tool_and_second_build_is_cache_hit(family, s
 def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
     objects = [a for _, _, a in FEES[:3]]
     leaked = [dict(o, boat={"name": o["boat"], "fee": a}) for o, (_, a, _) in zip(objects, FEES)]
-    mixed = [objects[0], {"vessel": "Gannet", "metres": 9, "rate": 4}, objects[2]]
+    mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
     builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(mixed)], []))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
