@@ -50,7 +50,7 @@ def solve(**arguments):
             return x
     return None
 """
-SHAPE_DEMOS = 2  # worked demonstrations in prompts/shape_demo.j2: a plain list, then facts of several kinds
+SHAPE_DEMOS = 3  # worked demonstrations in prompts/shape_demo.j2, of unrelated kinds in a neutral setting
 SEARCH_SOLVE = "\n\ndef solve(**arguments):\n    x = 0\n    while not holds(x, **arguments):\n        x += 1\n    return x\n"
 
 
@@ -521,6 +521,9 @@ class Builder:
             call = f"solve(**{json.dumps(args, ensure_ascii=False)})"
             if res.status != "ok":
                 fb = f"{call} failed: {res.message}"
+                lines = cand.code.splitlines()
+                if res.line and 0 < res.line <= len(lines):  # the line that failed, as the builder wrote it
+                    fb += f"\n  line {res.line}: {lines[res.line - 1].strip()}"
                 if res.error_kind == "timeout":
                     fb += " (it ran too long: make sure every loop ends)"
             elif not answers_match(ex.answer, res.value):

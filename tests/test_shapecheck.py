@@ -109,17 +109,20 @@ def test_a_name_stated_in_several_facts_must_be_copied_for_each():
     assert S.shape_problems([q], ["Nell"], [full]) == []
 
 
-@pytest.mark.parametrize("index", [0, 1])
+@pytest.mark.parametrize("index", [0, 1, 2])
 def test_the_builders_worked_demonstrations_pass_the_checks(index):
     """The argument designs shown to the builder as worked demonstrations must themselves be clean."""
     import json
     import re
 
-    from runner import prompts
+    from runner import prompts, readwords
     user = prompts.render("shape_demo.j2", part="user", index=index)
     objects = json.loads(prompts.render("shape_demo.j2", part="assistant", index=index))["arguments"]
     questions = re.findall(r"Question \d+: (.*)", user)
     assert len(questions) == len(objects) == 3
+    # as the build checks a proposal: values written in words are converted first (runner/readwords.py)
+    raw, objects, _ = readwords.convert_objects(objects)
+    questions = readwords.convert_questions(questions, raw, objects)
     assert S.shape_problems(questions, [None] * 3, objects) == []
     S.infer_schema(objects)
 
