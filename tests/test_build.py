@@ -420,3 +420,11 @@ def test_number_words_and_month_dates_are_converted_by_declaration(sandbox, tmp_
     assert tool.card.demos[0].arguments["months"] == "four"
     assert tool.card.schema_["properties"]["months"]["type"] == ["integer", "string"]
     assert sandbox.run(tool.code, {"boat": "X", "start": "5th of July 2026", "months": "seven"}).value == 7
+
+
+def test_review_names_which_examples_played_which_part():
+    from runner.cli import example_roles
+
+    text = example_roles({"roles": {"draft": ["a", "b"], "choose": ["c"], "confirm": ["d"]}, "check_note": ""})
+    assert text == "examples — draft: a, b; choose: c; confirm: d"
+    assert "weaker" in example_roles({"roles": {}, "check_note": "weaker check: ..."})
