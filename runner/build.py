@@ -458,8 +458,9 @@ class Builder:
             raw, converted, conversions = readwords.convert_objects(objects)
             checked_questions = readwords.convert_questions(questions, raw, converted)
             converted = shapecheck.prune_extras(checked_questions, answers, converted)
-            if conversions:
+            if conversions:  # the fields pruned from the converted objects go from the copies as written too
                 raw = [{k: v for k, v in r.items() if k in c} for r, c in zip(raw, converted)]
+                conversions = readwords.declared_conversions(raw)
             else:
                 raw = converted
             sig = json.dumps(converted, sort_keys=True)

@@ -192,7 +192,7 @@ def loosen_schema(schema: dict[str, Any], conversions: dict[str, str]) -> dict[s
         for step in _steps(path):
             parent, last = node, step
             node = node.get("items", {}) if step == "[]" else node.get("properties", {}).get(step, {})
-        if parent is None:
+        if parent is None or not node:
             continue
         target = parent["items"] if last == "[]" else parent["properties"][last]
         target.clear()

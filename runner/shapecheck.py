@@ -363,8 +363,8 @@ def _unify_level(objects: list[dict[str, Any]]) -> list[dict[str, Any]]:
     for o in objects:
         counts[tuple(sorted(o))] = counts.get(tuple(sorted(o)), 0) + 1
     common = max(counts, key=lambda k: (counts[k], -len(k)))
-    if counts[common] < 2 and len(objects) > 2:
-        return objects
+    if counts[common] < 2:  # no key set shared: the first object's names, if every match is unambiguous
+        common = tuple(sorted(objects[0]))
     model = next(o for o in objects if tuple(sorted(o)) == common)
     out = []
     for o in objects:

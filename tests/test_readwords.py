@@ -55,3 +55,12 @@ def test_unify_keys_renames_one_field_named_two_ways():
     assert unify_keys(items * 2)[0]["log"][1] == {"boat": "Tern", "boxes": 2}
     odd = [{"a": "x", "b": "y"}, {"a": "x", "b": "y"}, {"c": "x", "d": "y"}]
     assert unify_keys(odd) == odd
+    # three names for one list, one per question: the first question's name
+    three = [{"entries": [1]}, {"landings": [2, 3]}, {"records": []}]
+    assert unify_keys(three) == [{"entries": [1]}, {"entries": [2, 3]}, {"entries": []}]
+
+
+def test_a_conversion_at_a_place_the_schema_lacks_is_skipped():
+    schema = {"type": "object", "properties": {"start": {"type": "string", "pattern": "x"}}}
+    assert R.loosen_schema(schema, {"gone": "month-date", "start": "month-date"}) == \
+        {"type": "object", "properties": {"start": {"type": "string"}}}
