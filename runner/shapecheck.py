@@ -21,7 +21,7 @@ _STOP = {
     "mondays", "tuesdays", "wednesdays", "thursdays", "fridays", "saturdays", "sundays", "weekends", "minutes",
 }
 
-HARD = ("expected ", "every argument object", "do not share one shape", "the answer appears")
+HARD = ("expected ", "every argument object", "do not share one shape", "the answer appears", "most numbers")
 
 
 def is_hard(problem: str) -> bool:
@@ -212,6 +212,10 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
         return ["every argument object must be a non-empty JSON object"]
     if common_shape(objects) is None:
         problems.append("the argument objects do not share one shape (same keys, same types)")
+    stated = sum(len(numbers_in(q)) for q in questions)
+    left_out = sum(len(numbers_in(q) - numbers_in(_flatten(o))) for q, o in zip(questions, objects))
+    if stated >= 4 and left_out * 2 > stated:  # a summary of the questions, not a copy of their data
+        problems.append(f"most numbers the questions state are missing ({left_out} of {stated})")
     # a name written in every question alike (a place, an office) is the setting, not data
     setting = set.intersection(*(key_tokens(q) for q in questions)) if len(questions) > 1 else set()
     for i, (q, ans, obj) in enumerate(zip(questions, answers, objects), 1):

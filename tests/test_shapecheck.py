@@ -159,3 +159,15 @@ def test_a_name_copied_more_often_than_stated_is_pruned():
     probs = S.shape_problems([Q], [17], [extra])
     assert probs == ["question 1: Kittiwake copied more often than stated"] and not S.is_hard(probs[0])
     assert S.prune_extras([Q], [17], [extra]) == [GOOD]
+
+
+def test_a_design_that_leaves_out_most_numbers_is_ruled_out():
+    qs = ["Tally: Auk 21 crab; Tern 32 crab; Smew 26 ling. Crab total?", "Auk 3 ling, Tern 4 ling. Ling total?"]
+    summary = [{"species": "crab"}, {"species": "ling"}]
+    problems = S.shape_problems(qs, [53, 7], summary)
+    assert any("most numbers" in p for p in problems) and any(S.is_hard(p) for p in problems)
+    copied = [{"entries": [{"boat": "Auk", "boxes": 21, "species": "crab"}, {"boat": "Tern", "boxes": 32, "species": "crab"},
+                           {"boat": "Smew", "boxes": 26, "species": "ling"}], "species": "crab"},
+              {"entries": [{"boat": "Auk", "boxes": 3, "species": "ling"}, {"boat": "Tern", "boxes": 4, "species": "ling"}],
+               "species": "ling"}]
+    assert not any("most numbers" in p for p in S.shape_problems(qs, [53, 7], copied))
