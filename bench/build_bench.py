@@ -174,6 +174,7 @@ def main() -> None:
     ap.add_argument("--out", type=Path, help="write results as JSON here (after every build)")
     ap.add_argument("--resume", action="store_true", help="keep results already in --out and build the rest")
     ap.add_argument("--traces", help="write each build's trace (JSONL) into this folder")
+    ap.add_argument("--first", choices=("check", "tuning"), help="build that half's families first")
     ap.add_argument("--render", type=Path, help="print the tables from a JSON results file and stop")
     ap.add_argument("--one", type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--trace", type=Path, help=argparse.SUPPRESS)
@@ -183,7 +184,10 @@ def main() -> None:
         print(json.dumps(one(args.one, args.budget, args.seed, args.test_n, args.trace), default=str))
         return
     if args.render:
-        data = json.loads(args.render.read_text())
+        try:
+            data = json.loads(args.render.read_text())
+        except (OSError, ValueError) as exc:
+            sys.exit(f"build_bench: cannot read results from {args.render}: {exc}")
         print(render(data["results"], data["meta"], split))
         return
     folders = family_dirs(args.folders)
@@ -203,6 +207,8 @@ def main() -> None:
         results = [r for r in json.loads(args.out.read_text())["results"] if "error" not in r]
     done = {r["folder"] for r in results}
     todo = [f for f in folders if str(f) not in done]
+    if args.first:
+        todo.sort(key=lambda f: split.get(f.name) != args.first)  # stable: folder order within each group
     if args.traces:
         Path(args.traces).mkdir(parents=True, exist_ok=True)
     print(f"{len(todo)} build(s) to run, {args.jobs} at once, budget {args.budget:g} CPU min each", flush=True)
