@@ -288,7 +288,7 @@ def add_missing_imports(code: str) -> str:
         if used and not defined and not (name == "date" and re.search(r"^\s*import\s+datetime", code, re.M)
                                            and not re.search(r"(?<![\w.])date\(", code)):
             adds.append(f"from {mod} import {name}")
-    if (re.search(r"^\s*import\s+datetime\s*$", code, re.M)
+    if ((re.search(r"^\s*import\s+datetime\s*$", code, re.M) or "import datetime" in adds)
             and not re.search(r"^\s*from\s+datetime\s+import", code, re.M)):
         code = re.sub(r"(?<![\w.])datetime\.(strptime|now|today|fromisoformat|combine)\(", r"datetime.datetime.\1(", code)
     return ("\n".join(adds) + "\n\n" + code) if adds else code

@@ -428,3 +428,11 @@ def test_review_names_which_examples_played_which_part():
     text = example_roles({"roles": {"draft": ["a", "b"], "choose": ["c"], "confirm": ["d"]}, "check_note": ""})
     assert text == "examples — draft: a, b; choose: c; confirm: d"
     assert "weaker" in example_roles({"roles": {}, "check_note": "weaker check: ..."})
+
+
+def test_a_forgotten_datetime_import_is_added_as_the_code_uses_it():
+    # seen from the 1.5B builder: `datetime.strptime` with no import at all
+    code = "def solve(d):\n    return datetime.strptime(d, '%Y-%m-%d').day\n"
+    ns: dict = {}
+    exec(B.add_missing_imports(code), ns)
+    assert ns["solve"]("2026-12-01") == 1
