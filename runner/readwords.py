@@ -15,6 +15,8 @@ import inspect
 import re
 from typing import Any
 
+from .shapecheck import value_paths
+
 KINDS = ("number-word", "month", "month-date")
 
 # ---- tool side (copied into tools) -------------------------------------------------------------------------
@@ -120,18 +122,6 @@ def _steps(path: str) -> list[str]:
     return [s for s in path.replace("[]", ".[]").split(".") if s]
 
 
-def _strings(value: Any, path: str = "") -> Any:
-    """(path, text) for every string inside an argument object; list items share the path `key[]`."""
-    if isinstance(value, str):
-        yield path, value
-    elif isinstance(value, dict):
-        for k, v in value.items():
-            yield from _strings(v, f"{path}.{k}" if path else k)
-    elif isinstance(value, list):
-        for v in value:
-            yield from _strings(v, f"{path}[]")
-
-
 def _reader(kind: str):
     return {"number-word": read_number_word, "month": read_month, "month-date": read_month_date}[kind]
 
@@ -141,8 +131,8 @@ def declared_conversions(objects: list[Any]) -> dict[str, str]:
     name), that kind. Places with any other string are left alone."""
     by_path: dict[str, list[str]] = {}
     for obj in objects:
-        for path, text in _strings(obj):
-            if path:
+        for path, text in value_paths(obj):
+            if path and isinstance(text, str):
                 by_path.setdefault(path, []).append(text)
     out = {}
     for path, texts in by_path.items():

@@ -255,15 +255,15 @@ def shape_problems(questions: list[str], answers: list[Any], objects: list[Any])
     return problems
 
 
-def _paths(value: Any, path: str = "") -> Any:
+def value_paths(value: Any, path: str = "") -> Any:
     """(path, value) for every value inside an argument object; list items share the path `key[]`."""
     yield path, value
     if isinstance(value, dict):
         for k, v in value.items():
-            yield from _paths(v, f"{path}.{k}" if path else k)
+            yield from value_paths(v, f"{path}.{k}" if path else k)
     elif isinstance(value, list):
         for v in value:
-            yield from _paths(v, f"{path}[]")
+            yield from value_paths(v, f"{path}[]")
 
 
 def answer_paths(objects: list[Any], answers: list[Any]) -> list[str]:
@@ -275,12 +275,12 @@ def answer_paths(objects: list[Any], answers: list[Any]) -> list[str]:
         if not isinstance(ans, str) or len(ans.strip()) < 2:
             return []
         want = ans.strip().lower()
-        found = {p for p, v in _paths(obj) if p and isinstance(v, str) and v.strip().lower() == want}
+        found = {p for p, v in value_paths(obj) if p and isinstance(v, str) and v.strip().lower() == want}
         common = found if common is None else common & found
 
     def repeats(path: str) -> bool:
         for obj in objects:
-            values = [str(v).strip().lower() for p, v in _paths(obj) if p == path]
+            values = [str(v).strip().lower() for p, v in value_paths(obj) if p == path]
             if len(values) != len(set(values)):
                 return True
         return False

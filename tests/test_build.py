@@ -289,11 +289,16 @@ HOLDS = ("```python\ndef holds(x, crew, swaps, asked_crate):\n    state = {c['na
          "    return state[x] == asked_crate\n```")
 
 
+def write_family(tmp_path, name: str, rows, prefix: str, description: str) -> B.Family:
+    """A family file of (question, answer, arguments) rows, ids prefix0, prefix1, ..."""
+    f = tmp_path / f"{name}.jsonl"
+    f.write_text("".join(json.dumps({"id": f"{prefix}{i}", "question": q, "answer": a}) + "\n"
+                         for i, (q, a, _) in enumerate(rows)))
+    return B.load_family(f, name=name, description=description)
+
+
 def test_choose_strategy_tries_each_candidate_from_the_answers_place(sandbox, tmp_path):
-    f = tmp_path / "swaps.jsonl"
-    f.write_text("".join(json.dumps({"id": f"s{i}", "question": q, "answer": a}) + "\n"
-                         for i, (q, a, _) in enumerate(SWAPS)))
-    family = B.load_family(f, name="crate-swaps", description="who holds the asked crate after the swaps")
+    family = write_family(tmp_path, "crate-swaps", SWAPS, "s", "who holds the asked crate after the swaps")
     objects = [a for _, _, a in SWAPS[:3]]
     table = {q: args for q, _, args in SWAPS}
     builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [HOLDS]))
@@ -320,10 +325,7 @@ SHORT_ONLY = "```python\ndef solve(boat, length, rate):\n    return length * rat
 
 
 def nine_family(tmp_path) -> B.Family:
-    f = tmp_path / "nine.jsonl"
-    f.write_text("".join(json.dumps({"id": f"n{i}", "question": q, "answer": a}) + "\n"
-                         for i, (q, a, _) in enumerate(NINE)))
-    return B.load_family(f, name="slipway-nine", description="the slipway fee of one boat")
+    return write_family(tmp_path, "slipway-nine", NINE, "n", "the slipway fee of one boat")
 
 
 def nine_executor():
@@ -404,10 +406,7 @@ MONTHS_CODE = ("```python\nimport datetime\n\ndef solve(boat, start, months):\n"
 
 
 def test_number_words_and_month_dates_are_converted_by_declaration(sandbox, tmp_path):
-    f = tmp_path / "leases.jsonl"
-    f.write_text("".join(json.dumps({"id": f"l{i}", "question": q, "answer": a}) + "\n"
-                         for i, (q, a, _) in enumerate(LEASES)))
-    family = B.load_family(f, name="leases", description="the months of a mooring")
+    family = write_family(tmp_path, "leases", LEASES, "l", "the months of a mooring")
     table = {q: args for q, _, args in LEASES}
     builder = ScriptedModel("builder", builder_script([shape_reply([a for _, _, a in LEASES[:3]])], [MONTHS_CODE]))
     executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
