@@ -139,7 +139,7 @@ class BuildSettings(BaseModel):
     seed: int = 0
     strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
     min_score: float = 1.0
-    max_rounds: int = 12
+    max_rounds: int = 500  # a safety net only: with a budget, the budget is what ends a build
     budget_cpu_minutes: float | None = None
 
 
