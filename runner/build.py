@@ -331,6 +331,14 @@ def build_key(family: Family, builder_sha: str, executor_sha: str, settings: Bui
     return hashlib.sha256(json.dumps(payload, sort_keys=True).encode()).hexdigest()[:32]
 
 
+def failed_key(key: str, settings: BuildSettings) -> str:
+    """Where a failed build is remembered. A build spends its budget, so a failure under one budget says
+    nothing about a larger one: the budget is part of this key. A verified tool needs no such mark: seeded
+    sampling makes a build under a larger budget repeat the smaller one's run up to the same tool."""
+    budget = settings.budget_cpu_minutes
+    return key if budget is None else f"{key}:budget={budget:g}"
+
+
 # ---- the pipeline -------------------------------------------------------------------------------------------
 
 class BudgetExhausted(Exception):
@@ -749,7 +757,7 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
             report = BuildReport.model_validate(cached.report)
             report.cache_hit = True
             return cached, report
-        failed = store.failed(b.key)
+        failed = store.failed(failed_key(b.key, settings))
         if failed is not None:
             report = BuildReport.model_validate_json(failed)
             report.cache_hit = True
@@ -758,7 +766,7 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
     report = b.report
     if cand is None or shape is None or card is None:
         report.verified = False
-        store.put_failed(b.key, report.model_dump_json())
+        store.put_failed(failed_key(b.key, settings), report.model_dump_json())
         return None, report
     report.verified = not cand.failed_at
     report.held_out_score = max(cand.confirm_score, 0.0)

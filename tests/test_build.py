@@ -435,3 +435,20 @@ def test_a_forgotten_datetime_import_is_added_as_the_code_uses_it():
     ns: dict = {}
     exec(B.add_missing_imports(code), ns)
     assert ns["solve"]("2026-12-01") == 1
+
+
+def test_a_failure_under_a_small_budget_is_not_reused_for_a_larger_one(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    with ToolStore(tmp_path / "store") as store:
+        small = ScriptedModel("builder", builder_script([shape_reply(objects)] * 99, [WRONG] * 99, [WRONG] * 99),
+                              cpu_per_completion_token=5.0)
+        tool, report = run_build(family, sandbox, store, small, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"], budget_cpu_minutes=0.5)
+        assert tool is None and not report.cache_hit
+        again, report2 = run_build(family, sandbox, store, small, ScriptedModel("executor", executor_script()),
+                                   strategies=["direct"], budget_cpu_minutes=0.5)
+        assert report2.cache_hit
+        larger = ScriptedModel("builder", builder_script([shape_reply(objects)] * 99, [GOOD] * 99))
+        tool, report3 = run_build(family, sandbox, store, larger, ScriptedModel("executor", executor_script()),
+                                  strategies=["direct"], budget_cpu_minutes=5)
+        assert not report3.cache_hit and tool is not None and tool.verified
