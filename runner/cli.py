@@ -360,7 +360,7 @@ def tools_review(name: str = typer.Argument(..., help="Tool name."),
         return
     out.print(f"[bold]{tool.name}[/bold] — {tool.description}")
     p = tool.provenance
-    out.print(f"verified: {'yes' if tool.verified else '[red]no[/red]'}, held-out score {tool.held_out_score:.2f}, "
+    out.print(f"verified: {'yes' if tool.verified else '[red]no[/red]'}, confirm score {tool.held_out_score:.2f}, "
               f"strategy {p.strategy}", highlight=False)
     out.print(f"built {p.created[:16].replace('T', ' ')} UTC; builder {p.builder_model or '-'}, "
               f"executor {p.executor_model or '-'}", highlight=False)
