@@ -116,8 +116,9 @@ def candidates(r: dict) -> str:
 
 def render(results: list[dict], meta: dict, split: dict[str, str]) -> str:
     """Per-family table, shares per half and the budget curve, as plain text that fits 80 columns."""
-    lines = [f"Builds: {meta.get('date', '?')}, {meta.get('machine', '?')}, budget {meta.get('budget')} CPU min "
-             f"per build, seed {meta.get('seed')}, {meta.get('jobs')} build(s) at once, one thread each.",
+    lines = [f"Builds: {meta.get('date', '?')}, {meta.get('machine', '?')}, seed {meta.get('seed')},",
+             f"budget {meta.get('budget'):g} CPU min per build, {meta.get('jobs')} build(s) at once, "
+             f"{meta.get('threads', 1)} thread(s) each.",
              "cand = candidates tried per step: shape/draft/repair/verify. choose, confirm: the stored candidate's",
              "scores on those parts. failed = where the best attempt failed. test = right/asked test tasks.", ""]
     head = f"{'family':<18} {'half':<6} {'ok':<3} {'choose':>6} {'confirm':>7} {'CPU min':>7} {'cand':>11} " \
