@@ -119,9 +119,10 @@ def render(results: list[dict], meta: dict, split: dict[str, str]) -> str:
     lines = [f"Builds: {meta.get('date', '?')}, {meta.get('machine', '?')}, seed {meta.get('seed')},",
              f"budget {meta.get('budget'):g} CPU min per build, {meta.get('jobs')} build(s) at once, "
              f"{meta.get('threads', 1)} thread(s) each.",
-             "cand = candidates tried per step: shape/draft/repair/verify. choose, confirm: the",
-             "stored candidate's scores on those parts. failed = where the best attempt failed.",
-             "test = test tasks right / asked, with the tool as the run loop uses it (no routing).", ""]
+             "cand = candidates tried per step: shape/draft/repair/verify. choose, confirm:",
+             "the kept candidate's scores on those parts. failed = where the best attempt",
+             "failed. test = test tasks right / asked, the tool used as the run loop uses it",
+             "(fill, one retry, sandbox; no routing).", ""]
     head = f"{'family':<18} {'half':<6} {'ok':<3} {'choose':>6} {'confirm':>7} {'CPU min':>7} {'cand':>11} " \
            f"{'failed':<8} {'test':>6}"
     lines += [head, "-" * len(head)]
@@ -145,9 +146,9 @@ def render(results: list[dict], meta: dict, split: dict[str, str]) -> str:
         good = sum(1 for t in tests if t["right"] >= 0.95 * t["n"])
         lines.append(f"{half or 'all':<7} verified {ok}/{len(rs)} ({ok / len(rs):.0%}); right on >= 95% of "
                      f"test tasks: {good}/{len(tests)}")
-    lines += ["", "Verified share against the CPU budget per build, from the one run above: sampling",
-              "is seeded, so a smaller budget is a prefix of the same run; a build counts at B",
-              "when it first verified within B CPU minutes."]
+    lines += ["", "Verified share against the CPU budget per build, from the one run above:",
+              "sampling is seeded, so a smaller budget is a prefix of the same run; a build",
+              "counts at B when it first verified within B CPU minutes."]
     top = float(meta.get("budget") or max(CURVE))
     head = f"{'half':<7}" + "".join(f"{f'<= {b:g} min':>12}" for b in CURVE if b <= top)
     lines += [head]
