@@ -24,13 +24,18 @@ test: models
 
 FAMILIES := $(patsubst samples/%/examples.jsonl,%,$(wildcard samples/*/examples.jsonl))
 
-# A tool for every demo family, each build capped at 8 CPU minutes. Kept in the tool store: a second run is a
+# A tool for every demo family: two builds at a time, one llama.cpp thread each, each capped at DEMO_BUDGET CPU
+# minutes (a build that verifies stops early; one that does not uses its whole budget). Each build's output
+# goes to build-logs/FAMILY.log; a line per family says how it ended. Kept in the tool store: a second run is a
 # cache hit, and a build that produced no tool is remembered too (`jigwright build --force` retries it).
+DEMO_BUDGET ?= 4
+BUILD_JOBS ?= 2
 tools: models
-	@for f in $(FAMILIES); do \
-	  echo "== building a tool for $$f (cached after the first run)"; \
-	  $(JW) build samples/$$f/examples.jsonl --budget-cpu-min 8 || echo "   ($$f: no verified tool)"; \
-	done
+	@mkdir -p build-logs
+	@echo "== building tools for $(words $(FAMILIES)) demo families, $(BUILD_JOBS) at a time, at most $(DEMO_BUDGET) CPU min each (logs in build-logs/)"
+	@printf '%s\n' $(FAMILIES) | JIGWRIGHT_THREADS=1 xargs -P $(BUILD_JOBS) -I{} sh -c \
+	  '$(JW) build samples/{}/examples.jsonl --budget-cpu-min $(DEMO_BUDGET) > build-logs/{}.log 2>&1 \
+	   && echo "   {}: verified" || echo "   {}: no verified tool (see build-logs/{}.log)"'
 	$(JW) tools list
 
 demo: models
@@ -51,4 +56,4 @@ bench: models
 	$(BIN)/python bench/runloop_bench.py
 
 clean:
-	rm -rf $(VENV) .pytest_cache demo-answers.jsonl eval-out
+	rm -rf $(VENV) .pytest_cache demo-answers.jsonl eval-out build-logs

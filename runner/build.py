@@ -17,7 +17,7 @@ from typing import Any, Callable, Iterator
 
 from pydantic import BaseModel, Field, ValidationError
 
-from . import prompts, shapecheck
+from . import prompts, readwords, shapecheck
 from .errors import InputError
 from .execute import REL_TOL, Filled, answers_match, fill_arguments
 from .fingerprint import code_fingerprint
@@ -51,7 +51,7 @@ def solve(**arguments):
             return x
     return None
 """
-SHAPE_DEMOS = 2  # worked demonstrations in prompts/shape_demo.j2: a plain list, then facts of several kinds
+SHAPE_DEMOS = 3  # worked demonstrations in prompts/shape_demo.j2, of unrelated kinds in a neutral setting
 SEARCH_SOLVE = "\n\ndef solve(**arguments):\n    x = 0\n    while not holds(x, **arguments):\n        x += 1\n    return x\n"
 
 
@@ -175,11 +175,16 @@ def read_hints(toml: Path, raw: Any) -> list[str]:
 # ---- settings and report ----------------------------------------------------------------------------------
 
 class BuildSettings(BaseModel):
-    """Knobs of one build. All but the CPU budget are part of the cache key; the budget decides whether a
-    stored outcome may be reused (see `budget_covers`): a verified tool is reused whatever the budget, a
-    failed or unverified one only if it was not cut short by a smaller budget than the one asked for now."""
+    """Knobs of one build. Without a CPU budget a build makes one round (each step sampled once as set here);
+    with one it keeps sampling round after round (more shapes, more drafts, every strategy again) until a tool
+    verifies, the budget is used up or `max_rounds` rounds are done. Sampling is seeded, so the build under a
+    smaller budget is a prefix of the build under a larger one. All but the CPU budget are part of the cache
+    key; the budget decides whether a stored outcome may be reused (see `budget_covers`): a verified tool is
+    reused whatever the budget, a failed or unverified one only if it was not cut short by a smaller budget
+    than the one asked for now."""
 
     draft_examples: int = 3
+    choose_examples: int = 3
     shape_samples: int = 4
     draft_samples: int = 3
     repair_rounds: int = 1
@@ -188,6 +193,7 @@ class BuildSettings(BaseModel):
     seed: int = 0
     strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
     min_score: float = 1.0
+    max_rounds: int = 500  # a safety net only: with a budget, the budget is what ends a build
     budget_cpu_minutes: float | None = None
 
 
@@ -206,10 +212,18 @@ class BuildReport(BaseModel):
     key: str
     cache_hit: bool = False
     verified: bool = False
-    held_out_score: float = 0.0
-    held_out: int = 0
+    held_out_score: float = 0.0  # on the confirm examples: the score that decides "verified"
+    held_out: int = 0  # how many confirm examples
+    choose_score: float = 0.0  # the stored candidate's score on the choose examples
+    roles: dict[str, list[str]] = Field(default_factory=dict)  # draft / choose / confirm: example ids
+    check_note: str = ""  # set when the examples are too few for three separate parts
     strategy: str = ""
     steps: dict[str, StepCost] = Field(default_factory=lambda: {s: StepCost() for s in STEPS})
+    rounds: int = 0
+    chosen: int = 0  # candidates that passed every choose example
+    confirmed: int = 0  # candidates that went on to pass every confirm example too
+    failed_at: str = ""  # where the best attempt failed: shape, draft, repair, fill, choose, confirm ("" if verified)
+    verified_cpu: float | None = None  # total CPU seconds when a candidate first verified
     stopped: str = ""
     failures: list[str] = Field(default_factory=list)
     budget_cpu_minutes: float | None = None
@@ -246,6 +260,8 @@ class ShapeCandidate:
     problems: list[str]
     schema: dict[str, Any] | None = None
     answer_from: str = ""  # where a text answer sits in every drafting example's arguments ("" if nowhere)
+    raw: list[dict[str, Any]] | None = None  # as copied from the questions, before declared conversions
+    conversions: dict[str, str] = field(default_factory=dict)  # argument path -> conversion kind
 
 
 @dataclass
@@ -257,11 +273,13 @@ class Candidate:
     draft_ok: int = 0
     feedback: str = ""
     checks: list[ExampleCheck] = field(default_factory=list)
-    score: float = -1.0
+    score: float = -1.0  # on the choose examples
+    confirm_score: float = -1.0  # on the confirm examples (-1 until it gets there)
+    failed_at: str = "unverified"
 
     @property
     def sort_key(self) -> tuple:
-        return (-self.score, -self.draft_ok, len(self.code))
+        return (bool(self.failed_at), -self.score, -self.confirm_score, -self.draft_ok, len(self.code))
 
 
 def extract_code(text: str) -> str:
@@ -327,7 +345,7 @@ def add_missing_imports(code: str) -> str:
         if used and not defined and not (name == "date" and re.search(r"^\s*import\s+datetime", code, re.M)
                                            and not re.search(r"(?<![\w.])date\(", code)):
             adds.append(f"from {mod} import {name}")
-    if (re.search(r"^\s*import\s+datetime\s*$", code, re.M)
+    if ((re.search(r"^\s*import\s+datetime\s*$", code, re.M) or "import datetime" in adds)
             and not re.search(r"^\s*from\s+datetime\s+import", code, re.M)):
         code = re.sub(r"(?<![\w.])datetime\.(strptime|now|today|fromisoformat|combine)\(", r"datetime.datetime.\1(", code)
     return ("\n".join(adds) + "\n\n" + code) if adds else code
@@ -429,17 +447,17 @@ def fill_examples(executor: ChatModel, card: Card, examples: list[Example], *, s
 
 
 def held_out_checks(sandbox: Any, code: str, examples: list[Example], fills: list[Filled],
-                    entry: str = "solve", rel_tol: float = REL_TOL) -> list[ExampleCheck]:
+                    entry: str = "solve", rel_tol: float = REL_TOL, split: str = "held_out") -> list[ExampleCheck]:
     """End to end on held-out examples: the executor's arguments go into the code in the sandbox, and the value
     is compared with the expected answer (a fill that did not fit the schema is a miss)."""
     checks = []
     for ex, filled in zip(examples, fills):
         if filled.arguments is None:
-            checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+            checks.append(ExampleCheck(id=ex.id, split=split, question=ex.question, expected=ex.answer,
                                        ok=False, error=filled.error))
             continue
         res = sandbox.run(code, filled.arguments, entry=entry)
-        checks.append(ExampleCheck(id=ex.id, split="held_out", question=ex.question, expected=ex.answer,
+        checks.append(ExampleCheck(id=ex.id, split=split, question=ex.question, expected=ex.answer,
                                    arguments=filled.arguments, got=res.value if res.status == "ok" else None,
                                    ok=res.status == "ok" and answers_match(ex.answer, res.value, rel_tol),
                                    error=None if res.status == "ok" else res.message))
@@ -450,6 +468,33 @@ def held_out_checks(sandbox: Any, code: str, examples: list[Example], fills: lis
 
 class BudgetExhausted(Exception):
     pass
+
+
+def split_examples(examples: list[Example], draft_n: int, choose_n: int
+                   ) -> tuple[list[Example], list[Example], list[Example], str]:
+    """The examples in three parts, in file order: draft (shown to the builder), choose (pick among candidates)
+    and confirm (only a candidate that also passes these is verified). With too few examples for three parts
+    the choose examples also confirm, and the note says the check is weaker."""
+    d = min(draft_n, len(examples) - 1)
+    draft, rest = examples[:d], examples[d:]
+    if len(rest) >= 4:
+        c = min(choose_n, len(rest) // 2)
+        choose, confirm = rest[:c], rest[c:]
+        note = "" if c >= 3 and len(confirm) >= 3 else (
+            f"weaker check: {len(choose)} example(s) chose among candidates and {len(confirm)} confirmed "
+            f"(9 examples give 3 to draft, 3 to choose and 3 to confirm)")
+        return draft, choose, confirm, note
+    return draft, rest, rest, (f"weaker check: the same {len(rest)} example(s) chose among candidates and "
+                               f"confirmed the tool (9 examples give 3 to draft, 3 to choose and 3 to confirm)")
+
+
+def fill_suspect(example: Example, arguments: dict[str, Any] | None) -> bool:
+    """Whether a miss looks like the executor's fault: no argument object, or one that leaves out or invents a
+    number or name the question states (the same mechanical checks the shape step uses)."""
+    if arguments is None:
+        return True
+    problems = shapecheck.shape_problems([example.question], [example.answer], [arguments])
+    return any("missing" in p or "not in the question" in p for p in problems)
 
 
 class Builder:
@@ -463,15 +508,27 @@ class Builder:
         self.settings = settings
         self.builder_sha, self.executor_sha = builder_sha, executor_sha
         self.progress = progress or (lambda step, note: None)
-        n = min(settings.draft_examples, len(family.examples) - 1)
-        self.drafting = family.examples[:n]
-        self.held_out = family.examples[n:]
+        self.drafting, self.choosing, self.confirming, note = split_examples(
+            family.examples, settings.draft_examples, settings.choose_examples)
+        self.shared_check = self.choosing is self.confirming
         self.key = build_key(family, builder_sha, executor_sha, settings)
         self.inputs_key = inputs_key(family, builder_sha, executor_sha, settings)
-        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.held_out),
+        self.report = BuildReport(family=family.name, tool=family.name, key=self.key, held_out=len(self.confirming),
+                                  check_note=note,
+                                  roles={"draft": [e.id for e in self.drafting], "choose": [e.id for e in self.choosing],
+                                         "confirm": [e.id for e in self.confirming]},
                                   budget_cpu_minutes=settings.budget_cpu_minutes, runner=code_fingerprint("build"))
         self._seed = settings.seed
+        self._seen_shapes: set[str] = set()
+        self._fills: dict[tuple[str, str], list[Filled]] = {}
+        self._reached = ""  # the furthest step any attempt reached
         self.best_draft: tuple[Candidate, ShapeCandidate] | None = None  # most drafting examples passed so far
+        self.passing: list[tuple[Candidate, ShapeCandidate]] = []  # every candidate that passed its drafting examples
+
+    # kept for callers that still speak of one held-out part
+    @property
+    def held_out(self) -> list[Example]:
+        return self.confirming
 
     # -- accounting
     def _next_seed(self) -> int:
@@ -509,49 +566,68 @@ class Builder:
         return msgs + [{"role": "user", "content": prompts.render("shape_user.j2", description=self.family.description,
                                                                   hints=self.family.hints, questions=questions)}]
 
-    def shapes(self) -> Iterator[ShapeCandidate]:
-        """Sampled argument designs, checked mechanically. Proposals with no problem are yielded as they come;
-        once all samples are drawn, those with only soft problems follow, fewest problems first.
+    def shapes(self, round_: int = 0) -> Iterator[ShapeCandidate]:
+        """Sampled argument designs, mechanically repaired (pieces joined, extra fields dropped, keys that name
+        one field differently unified, values written as words read as numbers) and checked. Proposals with no
+        problem are yielded as they come; once this round's samples are drawn, those with only soft problems
+        follow, fewest problems first. A design seen in an earlier round is not yielded again.
 
         No grammar here: measured on this machine, a free-form JSON grammar made the 1.5B builder several
         times slower per token, while with the worked demonstration it writes valid JSON anyway."""
         msgs = self.shape_messages()
         budget = 100 + sum(len(e.question) for e in self.drafting)  # JSON of times and dates runs long
-        seen: set[str] = set()
         questions = [e.question for e in self.drafting]
         answers = [e.answer for e in self.drafting]
-        soft: list[tuple[int, int, list[dict[str, Any]]]] = []
-        for i in range(self.settings.shape_samples):
-            self.progress("shape", f"sample {i + 1}/{self.settings.shape_samples}")
-            temp = 0.2 if i == 0 else self.settings.temperature
+        soft: list[tuple[int, int, ShapeCandidate]] = []
+        n = self.settings.shape_samples
+        for i in range(n):
+            label = f"{round_ * n + i + 1}"
+            self.progress("shape", f"sample {label}" + (f" (round {round_ + 1})" if round_ else f"/{n}"))
+            temp = 0.2 if (i == 0 and round_ == 0) else self.settings.temperature
             text = self._ask_builder("shape", msgs, temperature=temp, max_tokens=budget)
             self.report.steps["shape"].tried += 1
             objects = parse_arguments_reply(text)
             if objects is None:
-                self.report.failures.append(f"shape {i + 1}: reply is not the expected JSON")
+                self.report.failures.append(f"shape {label}: reply is not the expected JSON")
                 continue
-            objects = shapecheck.prune_extras(questions, answers, shapecheck.merge_pieces(len(questions), objects))
-            sig = json.dumps(objects, sort_keys=True)
-            if sig in seen:
+            objects = shapecheck.merge_pieces(len(questions), objects)
+            objects = shapecheck.unify_keys(objects)
+            raw, converted, conversions = readwords.convert_objects(objects)
+            checked_questions = readwords.convert_questions(questions, raw, converted)
+            converted = shapecheck.prune_extras(checked_questions, answers, converted)
+            if conversions:  # the fields pruned from the converted objects go from the copies as written too
+                raw = [{k: v for k, v in r.items() if k in c} for r, c in zip(raw, converted)]
+                conversions = readwords.declared_conversions(raw)
+            else:
+                raw = converted
+            sig = json.dumps(converted, sort_keys=True)
+            if sig in self._seen_shapes:
                 continue
-            seen.add(sig)
-            problems = shapecheck.shape_problems(questions, answers, objects)
+            self._seen_shapes.add(sig)
+            problems = shapecheck.shape_problems(checked_questions, answers, converted)
+            self.trace({"step": "shape-check", "arguments": converted, "conversions": conversions,
+                        "problems": problems})
             if problems:
-                self.report.failures.append(f"shape {i + 1}: " + "; ".join(problems[:3]))
+                self.report.failures.append(f"shape {label}: " + "; ".join(problems[:3]))
                 if not any(shapecheck.is_hard(p) for p in problems):
-                    soft.append((len(problems), i, objects))
+                    soft.append((len(problems), i, self.shape_candidate(converted, [f"{len(problems)} soft"],
+                                                                        raw, conversions)))
                 continue
             self.report.steps["shape"].passed += 1
-            yield self.shape_candidate(objects, [])
-        for n_problems, i, objects in sorted(soft, key=lambda t: (t[0], t[1])):
-            self.progress("shape", f"trying sample {i + 1} despite {n_problems} soft problem(s)")
-            yield self.shape_candidate(objects, [f"{n_problems} soft"])
+            yield self.shape_candidate(converted, [], raw, conversions)
+        for n_problems, i, cand in sorted(soft, key=lambda t: (t[0], t[1])):
+            self.progress("shape", f"trying a design despite {n_problems} soft problem(s)")
+            yield cand
 
-    def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str]) -> ShapeCandidate:
-        """An argument design ready to draft from: its inferred schema and where a text answer sits in it."""
+    def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str],
+                        raw: list[dict[str, Any]] | None = None,
+                        conversions: dict[str, str] | None = None) -> ShapeCandidate:
+        """An argument design ready to draft from: its inferred schema (loosened where values are converted,
+        since the executor copies them as written) and where a text answer sits in it."""
         answer_from = next(iter(shapecheck.answer_paths(objects, [e.answer for e in self.drafting])), "")
-        return ShapeCandidate(objects=objects, problems=problems, schema=shapecheck.infer_schema(objects),
-                              answer_from=answer_from)
+        schema = readwords.loosen_schema(shapecheck.infer_schema(objects), conversions or {})
+        return ShapeCandidate(objects=objects, problems=problems, schema=schema, answer_from=answer_from,
+                              raw=raw, conversions=dict(conversions or {}))
 
     # -- draft and repair
     def draft_messages(self, shape: ShapeCandidate, strategy: str) -> list[Message]:
@@ -572,6 +648,8 @@ class Builder:
             code = code.rstrip() + "\n" + SEARCH_SOLVE
         elif strategy == "choose":
             code = code.rstrip() + "\n" + CHOOSE_SOLVE.replace("PATH", repr(shape.answer_from))
+        if shape.conversions:
+            code = readwords.wrap_tool(code, shape.conversions)
         return code
 
     def check_on_drafting(self, cand: Candidate, shape: ShapeCandidate) -> None:
@@ -584,6 +662,9 @@ class Builder:
                 fb = f"{call} failed: {res.message}"
                 if res.error_kind == "timeout":
                     fb += " (it ran too long: make sure every loop ends)"
+                lines = cand.code.splitlines()
+                if res.line and 0 < res.line <= len(lines):  # the line that failed, as the builder wrote it
+                    fb += f"\n  line {res.line}: {lines[res.line - 1].strip()}"
             elif not answers_match(ex.answer, res.value, self.family.rel_tol):
                 fb = f"{call} must return {ex.answer!r} but returned {res.value!r}."
             else:
@@ -598,12 +679,13 @@ class Builder:
         if self.best_draft is None or cand.draft_ok > self.best_draft[0].draft_ok:
             self.best_draft = (cand, shape)
 
-    def draft(self, shape: ShapeCandidate, strategy: str) -> list[Candidate]:
+    def draft(self, shape: ShapeCandidate, strategy: str, round_: int = 0) -> list[Candidate]:
         msgs = self.draft_messages(shape, strategy)
         out = []
         for i in range(self.settings.draft_samples):
-            self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}")
-            temp = 0.2 if i == 0 else self.settings.temperature
+            self.progress("draft", f"{strategy} sample {i + 1}/{self.settings.draft_samples}"
+                          + (f" (round {round_ + 1})" if round_ else ""))
+            temp = 0.2 if (i == 0 and round_ == 0) else self.settings.temperature
             text = self._ask_builder("draft", msgs, temperature=temp, max_tokens=400)
             cand = Candidate(strategy=strategy, code=self.assemble(strategy, text, shape), messages=msgs, reply=text)
             self.check_on_drafting(cand, shape)
@@ -629,76 +711,153 @@ class Builder:
                 break
         return fixed
 
-    # -- verify
+    # -- verify: choose among candidates, then confirm
     def card(self, shape: ShapeCandidate) -> Card:
         assert shape.schema is not None
-        return make_card(self.family.name, self.family.description, shape.schema, self.drafting, shape.objects)
-
-    def fill_held_out(self, card: Card) -> list[Filled]:
-        def after(ex: Example, filled: Filled) -> None:
-            self._charge("verify", filled.usage, "executor")
-            self.trace({"step": "fill", "question": ex.question, "arguments": filled.arguments,
-                        "error": filled.error, "usage": filled.usage.model_dump()})
-
-        return fill_examples(self.executor, card, self.held_out, seed=self.settings.seed, after=after,
-                             before=lambda i: self.progress("verify", f"executor fills held-out {i + 1}/{len(self.held_out)}"))
+        return make_card(self.family.name, self.family.description, shape.schema, self.drafting,
+                         shape.raw or shape.objects)
 
     def draft_checks(self, code: str, shape: ShapeCandidate) -> list[ExampleCheck]:
         """What the tool returns on each drafting example, as it returned it (not a copy of the expected
         answer), so a stored tool's record shows its own results."""
         return drafting_checks(self.sandbox, code, self.drafting, shape.objects, rel_tol=self.family.rel_tol)
 
-    def verify(self, cand: Candidate, shape: ShapeCandidate, fills: list[Filled]) -> None:
-        held = held_out_checks(self.sandbox, cand.code, self.held_out, fills, rel_tol=self.family.rel_tol)
-        checks = self.draft_checks(cand.code, shape) + held
-        ok = sum(c.ok for c in held)
-        self.report.steps["verify"].tried += 1
-        cand.checks = checks
-        cand.score = ok / len(self.held_out) if self.held_out else 0.0
-        self.trace({"step": "verified", "strategy": cand.strategy, "score": cand.score,
+    def fills_for(self, part: str, examples: list[Example], shape: ShapeCandidate, card: Card) -> list[Filled]:
+        """The executor's arguments for one part's questions under one argument design (filled once, kept)."""
+        key = (part, json.dumps(shape.objects, sort_keys=True))
+        if key not in self._fills:
+            def after(ex: Example, filled: Filled) -> None:
+                self._charge("verify", filled.usage, "executor")
+                self.trace({"step": "fill", "part": part, "question": ex.question, "arguments": filled.arguments,
+                            "error": filled.error, "usage": filled.usage.model_dump()})
+
+            self._fills[key] = fill_examples(
+                self.executor, card, examples, seed=self.settings.seed, after=after,
+                before=lambda i: self.progress("verify", f"executor fills {part} example {i + 1}/{len(examples)}"))
+        return self._fills[key]
+
+    def score(self, cand: Candidate, part: str, examples: list[Example], fills: list[Filled]
+              ) -> tuple[float, list[ExampleCheck], int]:
+        """The candidate on one part's examples with executor-filled arguments: (score, checks, misses that look
+        like the executor's fault)."""
+        checks = held_out_checks(self.sandbox, cand.code, examples, fills, rel_tol=self.family.rel_tol, split=part)
+        ok = sum(c.ok for c in checks)
+        fill_misses = sum(1 for ex, filled, c in zip(examples, fills, checks)
+                          if not c.ok and (filled.arguments is None or fill_suspect(ex, filled.arguments)))
+        score = ok / len(examples) if examples else 0.0
+        self.trace({"step": part, "strategy": cand.strategy, "score": score,
                     "misses": [c.model_dump() for c in checks if not c.ok]})
-        if cand.score >= self.settings.min_score:
-            self.report.steps["verify"].passed += 1
+        return score, checks, fill_misses
+
+    def verify(self, cand: Candidate, shape: ShapeCandidate, card: Card) -> None:
+        """Choose, then confirm: a candidate is verified only if it passes every choose example and then every
+        confirm example (with few examples the two parts are the same examples; the report says so)."""
+        draft_checks = self.draft_checks(cand.code, shape)
+        self.report.steps["verify"].tried += 1
+        fills = self.fills_for("choose", self.choosing, shape, card)
+        cand.score, checks, fill_misses = self.score(cand, "choose", self.choosing, fills)
+        cand.checks = draft_checks + checks
+        if cand.score < self.settings.min_score:
+            misses = sum(not c.ok for c in checks)
+            cand.failed_at = "fill" if fill_misses and fill_misses * 2 >= misses else "choose"
+            return
+        self.report.chosen += 1
+        if self.shared_check:
+            cand.confirm_score = cand.score
+        else:
+            fills = self.fills_for("confirm", self.confirming, shape, card)
+            cand.confirm_score, checks, fill_misses = self.score(cand, "confirm", self.confirming, fills)
+            cand.checks += checks
+            if cand.confirm_score < self.settings.min_score:
+                misses = sum(not c.ok for c in checks)
+                cand.failed_at = "fill" if fill_misses and fill_misses * 2 >= misses else "confirm"
+                return
+        self.report.confirmed += 1
+        self.report.steps["verify"].passed += 1
+        cand.failed_at = ""
 
     # -- the whole build
+    def try_shape(self, shape: ShapeCandidate, round_: int, best: list) -> bool:
+        """Every strategy that fits this design: draft, repair the closest misses, verify what passes. True once a
+        candidate verifies; `best` holds the best (candidate, shape, card) so far."""
+        card = self.card(shape)
+        n = len(self.drafting)
+        for strategy in applicable_strategies(self.settings.strategies, shape.objects,
+                                              [e.answer for e in self.drafting]):
+            cands = self.draft(shape, strategy, round_)
+            self._reach("draft")
+            failing = sorted((c for c in cands if c.draft_ok < n), key=lambda c: (-c.draft_ok, len(c.code)))
+            passing = [c for c in cands if c.draft_ok == n]
+            if not passing:
+                for c in failing[: self.settings.repairs_per_strategy]:
+                    self._reach("repair")
+                    fixed = self.repair(c, shape)
+                    if fixed.draft_ok == n:
+                        passing.append(fixed)
+                        break
+                    failing.append(fixed)
+            if not passing:
+                failing.sort(key=lambda c: (-c.draft_ok, len(c.code)))
+                self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback.splitlines()[0]}"
+                                            if failing and failing[0].feedback else f"{strategy}: no candidates")
+                continue
+            self.passing += [(c, shape) for c in _dedupe(passing)]
+            for c in _dedupe(passing):
+                if c.code in self._verified_codes:
+                    continue
+                self._verified_codes.add(c.code)
+                self.verify(c, shape, card)
+                self._reach(c.failed_at or "confirm")
+                if not best or c.sort_key < best[0][0].sort_key:
+                    best[:] = [(c, shape, card)]
+                if not c.failed_at:
+                    return True
+            if best:
+                bad = [ch for ch in best[0][0].checks if not ch.ok]
+                if bad:
+                    self.report.failures.append(
+                        f"{strategy}: {bad[0].split} {best[0][0].score:.2f}; e.g. {bad[0].id}: expected "
+                        f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip())
+        return False
+
+    _ORDER = ("shape", "draft", "repair", "fill", "choose", "confirm")
+
+    def _reach(self, step: str) -> None:
+        if self._ORDER.index(step) > (self._ORDER.index(self._reached) if self._reached else -1):
+            self._reached = step
+
     def run(self) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
-        best: tuple[Candidate, ShapeCandidate, Card] | None = None
+        """Round after round while the budget lasts: new shape samples (tried as they come), then more drafts
+        for every design found earlier. Without a budget, one round."""
+        best: list = []
+        self._verified_codes: set[str] = set()
+        pool: list[ShapeCandidate] = []
+        rounds = self.settings.max_rounds if self.settings.budget_cpu_minutes is not None else 1
+        self._reach("shape")
         try:
-            for shape in self.shapes():
-                card = self.card(shape)
-                fills: list[Filled] | None = None
-                for strategy in applicable_strategies(self.settings.strategies, shape.objects,
-                                                      [e.answer for e in self.drafting]):
-                    cands = self.draft(shape, strategy)
-                    failing = sorted((c for c in cands if c.draft_ok < len(self.drafting)),
-                                     key=lambda c: (-c.draft_ok, len(c.code)))
-                    passing = [c for c in cands if c.draft_ok == len(self.drafting)]
-                    if not passing:
-                        for c in failing[: self.settings.repairs_per_strategy]:
-                            fixed = self.repair(c, shape)
-                            if fixed.draft_ok == len(self.drafting):
-                                passing.append(fixed)
-                                break
-                    if not passing:
-                        self.report.failures.append(f"{strategy}: best draft feedback: {failing[0].feedback.splitlines()[0]}"
-                                                    if failing else f"{strategy}: no candidates")
-                        continue
-                    if fills is None:
-                        fills = self.fill_held_out(card)
-                    for c in _dedupe(passing):
-                        self.verify(c, shape, fills)
-                        if best is None or c.sort_key < best[0].sort_key:
-                            best = (c, shape, card)
-                    if best and best[0].score >= self.settings.min_score:
-                        return best
-                    if best:
-                        bad = [ch for ch in best[0].checks if not ch.ok]
-                        self.report.failures.append(
-                            f"{strategy}: held-out {best[0].score:.2f}; e.g. {bad[0].id}: expected "
-                            f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip() if bad else "")
+            for r in range(rounds):
+                self.report.rounds = r + 1
+                old = list(pool)
+                for shape in self.shapes(r):
+                    pool.append(shape)
+                    if self.try_shape(shape, r, best):
+                        return self._finish(best)
+                for shape in old:
+                    self.progress("draft", f"round {r + 1}: more drafts for an earlier design")
+                    if self.try_shape(shape, r, best):
+                        return self._finish(best)
         except BudgetExhausted as exc:
             self.report.stopped = str(exc)
-        return best if best else (None, None, None)
+        return self._finish(best)
+
+    def _finish(self, best: list) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
+        if best and not best[0][0].failed_at:
+            self.report.verified_cpu = self.report.total_cpu
+            self.report.failed_at = ""
+        else:
+            self.report.failed_at = best[0][0].failed_at if best else (
+                self._reached if self._reached in ("draft", "repair") else "shape")
+        return best[0] if best else (None, None, None)
 
 
 def _dedupe(cands: list[Candidate]) -> list[Candidate]:
@@ -714,7 +873,7 @@ def _tool(b: Builder, family: Family, cand: Candidate, card: Card, report: Build
           executor: ChatModel) -> Tool:
     settings = b.settings
     return Tool(key=b.key, name=family.name, description=card.description, code=cand.code, card=card,
-                verified=report.verified, held_out_score=cand.score, checks=cand.checks,
+                verified=report.verified, held_out_score=report.held_out_score, checks=cand.checks,
                 provenance=Provenance(builder_model=getattr(builder, "name", "?"), builder_sha256=b.builder_sha,
                                       executor_model=getattr(executor, "name", "?"), executor_sha256=b.executor_sha,
                                       template_hashes=prompts.template_hash(*TEMPLATES),
@@ -736,9 +895,9 @@ def reverify(b: Builder, old: Tool) -> Candidate | None:
     cand = Candidate(strategy=old.provenance.strategy, code=old.code, messages=[], reply="")
     b.progress("verify", f"checking '{old.name}' (built by runner {old.provenance.runner or 'of unknown version'}) "
                          f"with this runner")
-    b.verify(cand, shape, b.fill_held_out(old.card))
-    if not all(c.ok for c in cand.checks if c.split == "draft"):
-        cand.score = 0.0
+    b.verify(cand, shape, old.card)
+    if not all(c.ok for c in cand.checks if c.split == "draft") and not cand.failed_at:
+        cand.failed_at = "draft"
     return cand
 
 
@@ -772,9 +931,10 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
                 cand = reverify(b, old)
             except BudgetExhausted as exc:
                 b.report.stopped, cand = str(exc), None
-            if cand is not None and cand.score >= settings.min_score:
+            if cand is not None and not cand.failed_at:
                 report = b.report
-                report.verified, report.held_out_score, report.strategy = True, cand.score, cand.strategy
+                report.verified, report.strategy = True, cand.strategy
+                report.held_out_score, report.choose_score = max(cand.confirm_score, 0.0), max(cand.score, 0.0)
                 report.reused = (f"tool built by runner {old.provenance.runner or '(unknown)'} verified again by "
                                  f"runner {code_fingerprint('build')}")
                 report.steps["card"].tried = report.steps["card"].passed = 1
@@ -782,7 +942,7 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
                 store.put(tool)
                 return tool, report
             b.report.failures.append(f"the stored tool of an older runner no longer verifies "
-                                     f"(held-out {cand.score if cand else 0:.2f}); building afresh")
+                                     f"(confirm {max(cand.confirm_score, 0.0) if cand else 0:.2f}); building afresh")
     cand, shape, card = b.run()
     report = b.report
     if cand is None or shape is None or card is None:
@@ -794,13 +954,16 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
         cand, shape = b.best_draft
         card = b.card(shape)
         cand.checks = drafting_checks(sandbox, cand.code, b.drafting, shape.objects, rel_tol=family.rel_tol)
-        cand.score = 0.0
-        cand.checks += [ExampleCheck(id=e.id, split="held_out", question=e.question, expected=e.answer, ok=False,
-                                     error="not checked: no draft passed its drafting examples") for e in b.held_out]
+        cand.score, cand.confirm_score, cand.failed_at = 0.0, 0.0, cand.failed_at or "draft"
+        cand.checks += [ExampleCheck(id=e.id, split=part, question=e.question, expected=e.answer, ok=False,
+                                     error="not checked: no draft passed its drafting examples")
+                        for part, examples in (("choose", b.choosing), ("confirm", b.confirming))
+                        for e in (examples if part == "choose" or not b.shared_check else [])]
         report.failures.append(f"best attempt kept unverified: {cand.strategy}, {cand.draft_ok}/{len(b.drafting)} "
                                "drafting examples (`jigwright tools edit` finishes it by hand)")
-    report.verified = cand.score >= settings.min_score and bool(cand.checks) and all(c.ok for c in cand.checks)
-    report.held_out_score = cand.score
+    report.verified = not cand.failed_at and bool(cand.checks) and all(c.ok for c in cand.checks)
+    report.held_out_score = max(cand.confirm_score, 0.0)
+    report.choose_score = max(cand.score, 0.0)
     report.strategy = cand.strategy
     report.steps["card"].tried = report.steps["card"].passed = 1
     tool = _tool(b, family, cand, card, report, builder, executor)

@@ -247,8 +247,17 @@ def build_table(report) -> Table:
 
 def build_verdict(report) -> str:
     verdict = "[green]verified[/green]" if report.verified else "[red]NOT verified[/red]"
-    return (f"{verdict}: held-out score {report.held_out_score:.2f} on {report.held_out} examples, "
-            f"strategy {report.strategy or '-'}, {report.total_cpu / 60:.1f} CPU min")
+    text = (f"{verdict}: confirm {report.held_out_score:.2f} on {report.held_out} examples "
+            f"(choose {report.choose_score:.2f}), {report.strategy or '-'}, {report.total_cpu / 60:.1f} CPU min")
+    return text + (f"\n{report.check_note}" if report.check_note else "")
+
+
+def example_roles(report: dict) -> str:
+    """Which examples played which part in a build (draft, choose, confirm), and the weaker-check note."""
+    roles = report.get("roles") or {}
+    text = "; ".join(f"{part}: {', '.join(ids)}" for part, ids in roles.items() if ids)
+    note = report.get("check_note") or ""
+    return (f"examples — {text}" if text else "") + (f"\n{note}" if note else "")
 
 
 @app.command("build")
@@ -368,10 +377,13 @@ def tools_review(name: str = typer.Argument(..., help="Tool name."),
         return
     out.print(f"[bold]{tool.name}[/bold] — {tool.description}")
     p = tool.provenance
-    out.print(f"verified: {'yes' if tool.verified else '[red]no[/red]'}, held-out score {tool.held_out_score:.2f}, "
+    out.print(f"verified: {'yes' if tool.verified else '[red]no[/red]'}, confirm score {tool.held_out_score:.2f}, "
               f"{p.origin}, strategy {p.strategy}", highlight=False)
     out.print(f"built {p.created[:16].replace('T', ' ')} UTC; builder {p.builder_model or '-'}, "
               f"executor {p.executor_model or '-'}", highlight=False)
+    roles = example_roles(tool.report)
+    if roles:
+        out.print(roles, highlight=False)
     out.print(Syntax(tool.code, "python", line_numbers=True))
     out.print("arguments (JSON Schema):")
     out.print_json(json.dumps(tool.card.schema_))

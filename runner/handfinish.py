@@ -135,7 +135,11 @@ def work_from_tool(tool: Tool, examples: Path | None = None) -> HandWork:
                         objects=[demos[e.question] for e in drafting_ex], held_out=held_ex, source=str(examples),
                         rel_tol=family.rel_tol)
     drafting = [c for c in tool.checks if c.split == "draft" and c.arguments is not None]
-    held = [c for c in tool.checks if c.split == "held_out"]
+    held, seen = [], set()
+    for c in tool.checks:  # choose and confirm examples (held_out: tools built before those parts existed)
+        if c.split in ("choose", "confirm", "held_out") and c.id not in seen:
+            seen.add(c.id)
+            held.append(c)
     if not drafting or not held:
         raise InputError(f"tool '{tool.name}' records no {'drafting' if not drafting else 'held-out'} examples "
                          "to check an edit against; give its family file with --examples")

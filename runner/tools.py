@@ -31,7 +31,7 @@ class ExampleCheck(BaseModel):
     """How the tool did on one example during the build."""
 
     id: str
-    split: Literal["draft", "held_out"]
+    split: Literal["draft", "choose", "confirm", "held_out"]  # held_out: tools built before choose/confirm
     question: str
     expected: Any
     arguments: dict[str, Any] | None = None

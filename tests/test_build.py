@@ -106,7 +106,7 @@ def test_happy_path_stores_verified_tool_and_second_build_is_cache_hit(family, s
 def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
     objects = [a for _, _, a in FEES[:3]]
     leaked = [dict(o, boat={"name": o["boat"], "fee": a}) for o, (_, a, _) in zip(objects, FEES)]
-    mixed = [objects[0], {"vessel": "Gannet", "metres": 9, "rate": 4}, objects[2]]
+    mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
     builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(mixed)], []))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
@@ -173,7 +173,8 @@ def test_timeouts_are_reported_and_nothing_verifies(family, sandbox, tmp_path):
     assert any("ran too long" in f for f in report.failures)
     # the closest attempt is kept unverified (for `tools edit`), with its drafting checks as they ran
     assert tool is not None and not tool.verified and tool.held_out_score == 0.0
-    assert [c.split for c in tool.checks] == ["draft"] * 3 + ["held_out"] * 2 and not any(c.ok for c in tool.checks)
+    assert [c.split for c in tool.checks][:3] == ["draft"] * 3 and not any(c.ok for c in tool.checks)
+    assert {c.split for c in tool.checks[3:]} <= {"choose", "confirm"} and len(tool.checks) > 3
     assert all("limit" in (c.error or "") for c in tool.checks[:3]), [c.error for c in tool.checks]
     assert all((c.error or "").startswith("not checked") for c in tool.checks[3:])
 
@@ -294,11 +295,16 @@ HOLDS = ("```python\ndef holds(x, crew, swaps, asked_crate):\n    state = {c['na
          "    return state[x] == asked_crate\n```")
 
 
+def write_family(tmp_path, name: str, rows, prefix: str, description: str) -> B.Family:
+    """A family file of (question, answer, arguments) rows, ids prefix0, prefix1, ..."""
+    f = tmp_path / f"{name}.jsonl"
+    f.write_text("".join(json.dumps({"id": f"{prefix}{i}", "question": q, "answer": a}) + "\n"
+                         for i, (q, a, _) in enumerate(rows)))
+    return B.load_family(f, name=name, description=description)
+
+
 def test_choose_strategy_tries_each_candidate_from_the_answers_place(sandbox, tmp_path):
-    f = tmp_path / "swaps.jsonl"
-    f.write_text("".join(json.dumps({"id": f"s{i}", "question": q, "answer": a}) + "\n"
-                         for i, (q, a, _) in enumerate(SWAPS)))
-    family = B.load_family(f, name="crate-swaps", description="who holds the asked crate after the swaps")
+    family = write_family(tmp_path, "crate-swaps", SWAPS, "s", "who holds the asked crate after the swaps")
     objects = [a for _, _, a in SWAPS[:3]]
     table = {q: args for q, _, args in SWAPS}
     builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [HOLDS]))
@@ -309,3 +315,146 @@ def test_choose_strategy_tries_each_candidate_from_the_answers_place(sandbox, tm
     prompt = builder.calls[-1].messages[-1]["content"]
     assert "one of the `crew[].name` values" in prompt and "def holds(x, crew, swaps, asked_crate)" in prompt
     assert sandbox.run(tool.code, SWAPS[3][2]).value == "Senara"
+
+
+# Nine invented slipway questions: 3 to draft from, 3 to choose with, 3 to confirm with (the file order).
+NINE = FEES[:3] + [
+    ("The Smew, 8 metres, pays 2 coins a metre on the slipway. Fee?", 16, {"boat": "Smew", "length": 8, "rate": 2}),
+    ("Slipway for the Auk: 10 metres at 3 coins per metre?", 30, {"boat": "Auk", "length": 10, "rate": 3}),
+    ("At 4 coins per metre, what does the 6 metre Scaup pay for the slipway?", 24, {"boat": "Scaup", "length": 6, "rate": 4}),
+    ("The Fulmar is 14 metres long; the slipway costs 3 coins per metre. Fee?", 42, {"boat": "Fulmar", "length": 14, "rate": 3}),
+    ("Slipway fee for the Petrel: 16 metres at 2 coins a metre?", 32, {"boat": "Petrel", "length": 16, "rate": 2}),
+    ("The Shag, 13 metres, pays 5 coins per metre on the slipway. How much?", 65, {"boat": "Shag", "length": 13, "rate": 5}),
+]
+# right on every draft and choose example (lengths up to 12), wrong on the confirm examples (13 and more)
+SHORT_ONLY = "```python\ndef solve(boat, length, rate):\n    return length * rate if length <= 12 else 0\n```"
+
+
+def nine_family(tmp_path) -> B.Family:
+    return write_family(tmp_path, "slipway-nine", NINE, "n", "the slipway fee of one boat")
+
+
+def nine_executor():
+    table = {q: args for q, _, args in NINE}
+    return ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
+
+
+def test_nine_examples_draft_choose_confirm_and_only_a_confirmed_candidate_is_verified(sandbox, tmp_path):
+    family = nine_family(tmp_path)
+    objects = [a for _, _, a in NINE[:3]]
+    with ToolStore(tmp_path / "store") as store:
+        builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [SHORT_ONLY, GOOD]))
+        tool, report = run_build(family, sandbox, store, builder, nine_executor(), strategies=["direct"],
+                                 draft_samples=2, shape_samples=1)
+        assert report.roles == {"draft": ["n0", "n1", "n2"], "choose": ["n3", "n4", "n5"],
+                                "confirm": ["n6", "n7", "n8"]}
+        assert report.check_note == ""
+        # both pass drafting and choosing; only GOOD passes the confirm examples
+        assert report.chosen == 2 and report.confirmed == 1
+        assert tool is not None and tool.verified and "length * rate\n" in tool.code
+        assert [c.split for c in tool.checks] == ["draft"] * 3 + ["choose"] * 3 + ["confirm"] * 3
+        assert report.held_out == 3 and report.held_out_score == 1.0 and report.choose_score == 1.0
+
+        only_short = ScriptedModel("builder", builder_script([shape_reply(objects)], [SHORT_ONLY]))
+        tool, report = run_build(family, sandbox, store, only_short, nine_executor(), strategies=["direct"],
+                                 shape_samples=1, seed=3)
+        assert tool is not None and not tool.verified and not report.verified
+        assert report.failed_at == "confirm" and report.choose_score == 1.0 and report.held_out_score == 0.0
+
+
+def test_with_fewer_examples_the_report_says_the_check_is_weaker(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    builder = ScriptedModel("builder", builder_script([shape_reply(objects)], [GOOD]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
+    assert tool.verified and "weaker check" in report.check_note
+    assert report.roles["choose"] == report.roles["confirm"] == ["f3", "f4"]
+
+
+def test_with_a_budget_the_build_samples_on_after_a_round_finds_nothing(family, sandbox, tmp_path):
+    """The known failure: every shape of the first round was unusable and the build stopped with most of
+    its budget left. Now more rounds follow: more shapes, and more drafts for designs found earlier."""
+    objects = [a for _, _, a in FEES[:3]]
+    mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
+    shapes = [shape_reply(mixed)] * 2 + [shape_reply(objects)] + [shape_reply(mixed)] * 20
+    builder = ScriptedModel("builder", builder_script(shapes, [WRONG] + [GOOD] * 9, [WRONG] * 9))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"], budget_cpu_minutes=100)
+    assert tool is not None and tool.verified
+    # round 1: two unusable shapes; round 2: a good shape whose draft fails, repaired in vain; round 3: the
+    # design found in round 2 gets new drafts (after that round's new shape samples), and one verifies
+    assert report.rounds == 3 and report.steps["shape"].tried == 6
+    assert report.steps["draft"].tried == 2 and report.steps["repair"].tried == 1
+    assert report.verified_cpu is not None and report.verified_cpu == report.total_cpu
+
+    never = ScriptedModel("builder", builder_script([shape_reply(mixed)] * 99, []), cpu_per_completion_token=1.0)
+    with ToolStore(tmp_path / "store2") as store:
+        tool, report = run_build(family, sandbox, store, never, ScriptedModel("executor", executor_script()),
+                                 budget_cpu_minutes=3.0)
+    assert tool is None and "budget" in report.stopped and report.failed_at == "shape"
+    assert report.steps["shape"].tried > 2 and report.rounds > 1
+
+
+# Questions with number words and month-name dates (invented), to check the declared conversions end to end.
+LEASES = [
+    ("The Petrel's mooring runs from 29th December 2026 for four months. Months left at the start?", 4,
+     {"boat": "Petrel", "start": "29th December 2026", "months": "four"}),
+    ("Mooring for the Auk: from Saturday 30 January 2027, twelve months.", 12,
+     {"boat": "Auk", "start": "Saturday 30 January 2027", "months": "twelve"}),
+    ("From March 3, 2027 the Tern moors for 6 months.", 6, {"boat": "Tern", "start": "March 3, 2027", "months": 6}),
+    ("The Smew moors from 1st of May 2026 for eleven months.", 11,
+     {"boat": "Smew", "start": "1st of May 2026", "months": "eleven"}),
+    ("The Skua moors from 2 June 2026 for 9 months.", 9, {"boat": "Skua", "start": "2 June 2026", "months": 9}),
+]
+MONTHS_CODE = ("```python\nimport datetime\n\ndef solve(boat, start, months):\n"
+               "    datetime.date.fromisoformat(start)\n    return months + 0\n```")
+
+
+def test_number_words_and_month_dates_are_converted_by_declaration(sandbox, tmp_path):
+    family = write_family(tmp_path, "leases", LEASES, "l", "the months of a mooring")
+    table = {q: args for q, _, args in LEASES}
+    builder = ScriptedModel("builder", builder_script([shape_reply([a for _, _, a in LEASES[:3]])], [MONTHS_CODE]))
+    executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, executor, strategies=["direct"])
+    assert tool is not None and tool.verified, report.failures
+    draft_prompt = builder.calls[-1].messages[-1]["content"]
+    # the builder drafts from converted values; the executor's demos keep them as written
+    assert '"start":"2026-12-29"' in draft_prompt.replace(" ", "") and '"months":4' in draft_prompt.replace(" ", "")
+    assert tool.card.demos[0].arguments["months"] == "four"
+    assert tool.card.schema_["properties"]["months"]["type"] == ["integer", "string"]
+    assert sandbox.run(tool.code, {"boat": "X", "start": "5th of July 2026", "months": "seven"}).value == 7
+
+
+def test_review_names_which_examples_played_which_part():
+    from runner.cli import example_roles
+
+    text = example_roles({"roles": {"draft": ["a", "b"], "choose": ["c"], "confirm": ["d"]}, "check_note": ""})
+    assert text == "examples — draft: a, b; choose: c; confirm: d"
+    assert "weaker" in example_roles({"roles": {}, "check_note": "weaker check: ..."})
+
+
+def test_a_forgotten_datetime_import_is_added_as_the_code_uses_it():
+    # seen from the 1.5B builder: `datetime.strptime` with no import at all
+    code = "def solve(d):\n    return datetime.strptime(d, '%Y-%m-%d').day\n"
+    ns: dict = {}
+    exec(B.add_missing_imports(code), ns)
+    assert ns["solve"]("2026-12-01") == 1
+
+
+def test_a_failure_under_a_small_budget_is_not_reused_for_a_larger_one(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    with ToolStore(tmp_path / "store") as store:
+        small = ScriptedModel("builder", builder_script([shape_reply(objects)] * 99, [WRONG] * 99, [WRONG] * 99),
+                              cpu_per_completion_token=5.0)
+        tool, report = run_build(family, sandbox, store, small, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"], budget_cpu_minutes=0.5)
+        assert tool is None and not report.cache_hit
+        again, report2 = run_build(family, sandbox, store, small, ScriptedModel("executor", executor_script()),
+                                   strategies=["direct"], budget_cpu_minutes=0.5)
+        assert report2.cache_hit
+        larger = ScriptedModel("builder", builder_script([shape_reply(objects)] * 99, [GOOD] * 99))
+        tool, report3 = run_build(family, sandbox, store, larger, ScriptedModel("executor", executor_script()),
+                                  strategies=["direct"], budget_cpu_minutes=5)
+        assert not report3.cache_hit and tool is not None and tool.verified

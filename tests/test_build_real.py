@@ -30,11 +30,14 @@ def test_real_build_verifies_and_second_build_is_a_cache_hit(tmp_home, tmp_path)
                                settings=settings, builder_sha=builder.spec.sha256, executor_sha=executor.spec.sha256)
         assert report.verified, report.failures
         assert tool is not None and tool.verified and report.held_out == 3 and report.held_out_score == 1.0
-        held_out = [c for c in tool.checks if c.split == "held_out"]
+        # nine examples: 3 draft, 3 choose among candidates, 3 confirm the chosen one
+        assert report.check_note == "" and [len(report.roles[p]) for p in ("draft", "choose", "confirm")] == [3, 3, 3]
+        assert [c.split for c in tool.checks] == ["draft"] * 3 + ["choose"] * 3 + ["confirm"] * 3
+        held_out = [c for c in tool.checks if c.split == "confirm"]
         assert len(held_out) == 3 and all(c.ok for c in held_out)
         # the stored tool answers its held-out examples when run again, from the stored record
         stored = store.get(family.name)
-        for check, example in zip(held_out, family.examples[3:]):
+        for check, example in zip(held_out, family.examples[6:]):
             res = sandbox.run(stored.code, check.arguments)
             assert res.status == "ok" and answers_match(example.answer, res.value)
         again, report2 = B.build(family, builder=builder, executor=executor, sandbox=sandbox, store=store,

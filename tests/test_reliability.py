@@ -482,7 +482,7 @@ def test_a_tool_of_an_older_runner_is_reused_only_if_it_still_verifies(tmp_path,
         monkeypatch.setattr(B, "code_fingerprint", lambda kind: "9.9.10+0123456789ab")
         builder = ScriptedModel("b", builder_script([shape_reply(objects)] * 4, [GOOD] * 40, [GOOD] * 40))
         third, report = run_build(family, sandbox, store, builder, ScriptedModel("e", executor_script(wrong=True)))
-        assert builder.calls and "no longer verifies (held-out 0.00)" in " ".join(report.failures)
+        assert builder.calls and "no longer verifies (confirm 0.00)" in " ".join(report.failures)
         assert not report.verified
 
 

@@ -109,17 +109,20 @@ def test_a_name_stated_in_several_facts_must_be_copied_for_each():
     assert S.shape_problems([q], ["Nell"], [full]) == []
 
 
-@pytest.mark.parametrize("index", [0, 1])
+@pytest.mark.parametrize("index", [0, 1, 2])
 def test_the_builders_worked_demonstrations_pass_the_checks(index):
     """The argument designs shown to the builder as worked demonstrations must themselves be clean."""
     import json
     import re
 
-    from runner import prompts
+    from runner import prompts, readwords
     user = prompts.render("shape_demo.j2", part="user", index=index)
     objects = json.loads(prompts.render("shape_demo.j2", part="assistant", index=index))["arguments"]
     questions = re.findall(r"Question \d+: (.*)", user)
     assert len(questions) == len(objects) == 3
+    # as the build checks a proposal: values written in words are converted first (runner/readwords.py)
+    raw, objects, _ = readwords.convert_objects(objects)
+    questions = readwords.convert_questions(questions, raw, objects)
     assert S.shape_problems(questions, [None] * 3, objects) == []
     S.infer_schema(objects)
 
@@ -156,3 +159,15 @@ def test_a_name_copied_more_often_than_stated_is_pruned():
     probs = S.shape_problems([Q], [17], [extra])
     assert probs == ["question 1: Kittiwake copied more often than stated"] and not S.is_hard(probs[0])
     assert S.prune_extras([Q], [17], [extra]) == [GOOD]
+
+
+def test_a_design_that_leaves_out_most_numbers_is_ruled_out():
+    qs = ["Tally: Auk 21 crab; Tern 32 crab; Smew 26 ling. Crab total?", "Auk 3 ling, Tern 4 ling. Ling total?"]
+    summary = [{"species": "crab"}, {"species": "ling"}]
+    problems = S.shape_problems(qs, [53, 7], summary)
+    assert any("most numbers" in p for p in problems) and any(S.is_hard(p) for p in problems)
+    copied = [{"entries": [{"boat": "Auk", "boxes": 21, "species": "crab"}, {"boat": "Tern", "boxes": 32, "species": "crab"},
+                           {"boat": "Smew", "boxes": 26, "species": "ling"}], "species": "crab"},
+              {"entries": [{"boat": "Auk", "boxes": 3, "species": "ling"}, {"boat": "Tern", "boxes": 4, "species": "ling"}],
+               "species": "ling"}]
+    assert not any("most numbers" in p for p in S.shape_problems(qs, [53, 7], copied))
