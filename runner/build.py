@@ -439,7 +439,8 @@ def fill_examples(executor: ChatModel, card: Card, examples: list[Example], *, s
     for i, ex in enumerate(examples):
         if before:
             before(i)
-        filled = fill_arguments(executor, card, ex.question, seed=seed)
+        # no warm state: a card under verification may never be kept
+        filled = fill_arguments(executor, card, ex.question, seed=seed, keep_state=False)
         if after:
             after(ex, filled)
         fills.append(filled)

@@ -208,6 +208,24 @@ def models_try(name: str = typer.Argument(..., help="Model name."),
               f"{u.cpu_seconds:.2f} CPU s, {u.wall_seconds:.2f} wall s")
 
 
+# ---- warm states ----------------------------------------------------------------------------------------------
+
+def _warm_states(model, cards=None) -> None:
+    """Save the router's and each tool's fill state ahead of time (see runner/warmup.py); one line on stderr."""
+    from . import warmup
+
+    with err.status("preparing warm states") as status:
+        note = lambda text: status.update(text)  # noqa: E731
+        report = (warmup.prepare_from_store(model, note=note) if cards is None
+                  else warmup.prepare(model, cards, note=note))
+    if report is None:
+        return
+    ready = sum(s.how == "ready" for s in report.states)
+    err.print(f"warm states: {ready} ready, {report.made} made now ({report.cpu_seconds:.1f} CPU s), "
+              f"{report.removed} stale removed; {report.folder_bytes / 1e6:.0f} MB in {settings.warm_dir()}",
+              highlight=False, soft_wrap=True)
+
+
 # ---- build and tools -----------------------------------------------------------------------------------------
 
 tools_app = typer.Typer(no_args_is_help=True, help="The tool store: list, review, export, retire, edit, adopt.")
@@ -303,6 +321,8 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
                                          trace=tracer)
     if trace_fh:
         trace_fh.close()
+    if report.verified:  # the router prompt now lists this tool: the first question after a build starts warm
+        _warm_states(emodel)
     if as_json:
         out.print_json(json.dumps(report.summary()))
     else:
@@ -413,9 +433,12 @@ def tools_retire(name: str) -> None:
     """Take a tool out of the tool store."""
     from .store import ToolStore
 
+    from .llm import open_model
+
     with ToolStore() as store:
         store.remove(name)
     out.print(f"retired '{name}'")
+    _warm_states(open_model("executor", verbose=STATE["verbose"]))  # the router prompt no longer lists it
 
 
 # ---- tools finished by hand -----------------------------------------------------------------------------------
@@ -585,6 +608,7 @@ def _print_report(report, console: Console) -> None:
         f"generated tokens {report.tokens.completion}, {report.tokens.forced} of them forced by the schema\n"
         f"wall {report.wall_seconds:.1f} s, {report.tasks_per_minute:.1f} tasks/min\n"
         f"prompt cache: {sv.cached_tokens} of {sv.prompt_tokens} prompt tokens reused ({sv.cached_share:.0%}),\n"
+        f"  {report.tokens.restored} of them loaded from saved warm states;\n"
         f"  about {sv.cpu_seconds_saved:.1f} CPU s saved at {sv.cpu_per_prompt_token * 1000:.1f} ms/token "
         f"({sv.rate_source})", highlight=False)
     if report.interrupted:
@@ -626,6 +650,7 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
     if out_file is None and target is None:
         raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
     setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
+    _warm_states(setup.executor, [t.card for t in setup.tools])
     with _RunProgress(quiet=STATE["verbose"]) as progress:
         report = run_queue(queue, target, options, setup, follow=follow, progress=progress)
     console = err if target is None else out  # with --out -, stdout carries the answer records
@@ -703,7 +728,8 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
         out.print(f"[yellow]note:[/yellow] {escape(rec.error)}", highlight=False, soft_wrap=True)
     out.print(f"cost: {rec.cpu.model:.2f} CPU s model (routing {rec.cpu.route:.2f}, filling {rec.cpu.fill:.2f}) + "
               f"{rec.cpu.tool:.3f} CPU s tool, {rec.wall_seconds:.2f} s wall; "
-              f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached) + {rec.tokens.completion} generated",
+              f"tokens {rec.tokens.prompt} prompt ({rec.tokens.cached} cached, {rec.tokens.restored} of them from saved "
+              f"states) + {rec.tokens.completion} generated",
               highlight=False, soft_wrap=True)
     if rec.status == "error":
         sys.exit(1)
@@ -867,6 +893,13 @@ def checkup(as_json: bool = typer.Option(False, "--json", help="The same facts a
     out.print(f"physical cores (llama.cpp threads): {physical_cores()}")
     for r in rows:
         out.print(f"model {r.name}: {r.status}")
+    from .warmstate import Shelf
+
+    shelf = Shelf()
+    states = list(shelf.files())
+    out.print(f"warm states: {len(states)}, {shelf.total_bytes() / 1e6:.0f} MB of {shelf.cap / 1e6:.0f} MB "
+              f"(JIGWRIGHT_WARM_CAP_MB) in {shelf.root}" if shelf.enabled else
+              "warm states: off (JIGWRIGHT_WARM_CAP_MB=0)", highlight=False)
     out.print(_layers_table(layers))
     for layer in layers:
         out.print(f"{LAYER_TITLES[layer.name]}: {layer.detail}", highlight=False)

@@ -15,6 +15,7 @@ from . import answerform, prompts
 from .llm import ChatModel, Message
 from .meter import Usage
 from .tools import Card, Tool
+from .warmstate import PromptPrefix
 
 EXECUTOR_TEMPLATE = "executor_fill.j2"
 
@@ -38,6 +39,11 @@ def fill_messages(card: Card, question: str) -> list[Message]:
         msgs.append({"role": "assistant", "content": json.dumps(demo.arguments, ensure_ascii=False)})
     msgs.append({"role": "user", "content": question})
     return msgs
+
+
+def fill_prefix(card: Card) -> PromptPrefix:
+    """The fill prompt before the question is the same for every question of one tool: its state is kept."""
+    return PromptPrefix(f"fill:{card.name}", (EXECUTOR_TEMPLATE,))
 
 
 def token_budget(card: Card) -> int:
@@ -93,22 +99,25 @@ def _parse_fill(card: Card, text: str, finish_reason: str) -> tuple[dict[str, An
 
 
 def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, temperature: float = 0.0,
-                   forced: bool = True) -> Filled:
+                   forced: bool = True, keep_state: bool = True) -> Filled:
     """Ask the executor for the argument object of `question`. Greedy fills go through the model's forced path
     when it has one (`chat_forced`) and `forced` is on; otherwise, if the free reply does not fit the card's
     schema, ask again constrained by the schema (the cost of both calls is counted), and from then on ask this
-    tool's fills under the schema straight away."""
+    tool's fills under the schema straight away. `keep_state`: load or save the state of the prompt before
+    the question (off while building, where cards are candidates that may never be kept)."""
     messages = fill_messages(card, question)
+    prefix = fill_prefix(card) if keep_state else None
     chat_forced = getattr(model, "chat_forced", None)
     if forced and temperature == 0.0 and chat_forced is not None:
-        reply = chat_forced(messages, schema=card.schema_, max_tokens=token_budget(card))
+        reply = chat_forced(messages, schema=card.schema_, max_tokens=token_budget(card), prefix=prefix)
         if reply is not None:
             args, error = _parse_fill(card, reply.text, reply.finish_reason)
             return Filled(arguments=args, error=error, usage=reply.usage, raw=reply.text)
     usage = Usage()
     schema_key = json.dumps(card.schema_, sort_keys=True)
     if schema_key not in _FREE_MISSED:
-        reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card))
+        reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card),
+                           prefix=prefix)
         args, error = _parse_fill(card, reply.text, reply.finish_reason)
         if args is not None:
             return Filled(arguments=args, usage=reply.usage, raw=reply.text, mode="free")
@@ -118,7 +127,7 @@ def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, te
     else:
         mode = "schema"
     reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card),
-                       schema=card.schema_)
+                       schema=card.schema_, prefix=prefix)
     args, error = _parse_fill(card, reply.text, reply.finish_reason)
     return Filled(arguments=args, error=error, usage=usage + reply.usage, raw=reply.text, mode=mode)
 
@@ -271,7 +280,7 @@ def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: i
     return DirectAnswer(answer=answerform.direct_answer(question, reply.text), text=reply.text, usage=reply.usage)
 
 
-__all__ = ["Filled", "fill_messages", "fill_arguments", "fill_start", "forget_fill_misses", "schema_problem", "normalise",
+__all__ = ["Filled", "fill_messages", "fill_prefix", "fill_arguments", "fill_start", "forget_fill_misses", "schema_problem", "normalise",
            "answers_match", "as_number", "REL_TOL", "DIRECT_MAX_TOKENS",
            "extract_answer", "token_budget", "Tool", "ToolAnswer", "answer_with_tool", "DirectAnswer",
            "direct_messages", "answer_directly"]

@@ -14,6 +14,7 @@ from . import models, settings
 from .errors import ContextOverflowError, ModelLoadError, ModelRuntimeError
 from .meter import Stopwatch, Usage, physical_cores
 from .settings import ModelSpec
+from .warmstate import Outcome, PromptPrefix, WarmStates, common_prefix
 
 Message = dict[str, str]
 
@@ -36,7 +37,8 @@ class ChatModel(Protocol):
     name: str
 
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
-             stop: list[str] | None = None, schema: dict | None = None) -> Reply: ...
+             stop: list[str] | None = None, schema: dict | None = None,
+             prefix: PromptPrefix | None = None) -> Reply: ...
 
 
 def check_fits(model_name: str, prompt_tokens: int, max_tokens: int, n_ctx: int) -> None:
@@ -54,15 +56,6 @@ def prompt_size(model: Any, messages: list[Message]) -> int | None:
     return count(messages) if callable(count) else None
 
 
-def _common_prefix(a: list[int], b: list[int]) -> int:
-    n = 0
-    for x, y in zip(a, b):
-        if x != y:
-            break
-        n += 1
-    return n
-
-
 class LocalModel:
     """A GGUF model loaded on first use; one llama.cpp context reused so shared prompt prefixes stay cached."""
 
@@ -78,6 +71,7 @@ class LocalModel:
         self._grammars: dict[str, Any] = {}
         self._formatter: Any = None
         self._vocab: Any = None
+        self._warm: WarmStates | None = None
         self._lock = threading.Lock()
 
     @property
@@ -85,11 +79,12 @@ class LocalModel:
         return self._llm is not None
 
     def load(self) -> "LocalModel":
-        """Check the file (size, cached SHA-256 stamp, GGUF header) and load it once."""
+        """Check the file (size, cached SHA-256 stamp) and load it once. The header is not read again here: the
+        SHA-256 pins the exact file, whose header `models add` or the registry's entry vouched for (reading
+        the header's whole vocabulary in Python is a cost every fresh process would pay)."""
         if self._llm is not None:
             return self
         path = models.check_file(self.spec, rehash=False)
-        models.read_gguf_metadata(path)
         from llama_cpp import Llama  # heavy import, only when a model is really needed
 
         with Stopwatch() as sw:
@@ -99,7 +94,16 @@ class LocalModel:
             except (ValueError, RuntimeError) as exc:
                 raise ModelLoadError(f"llama.cpp could not load model '{self.name}' from {path}: {exc}") from exc
         self.load_usage = Usage(wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds)
+        self._warm = WarmStates(self._llm, self.spec.sha256)
         return self
+
+    def keep_prefix(self, messages: list[Message], prefix: PromptPrefix) -> Outcome:
+        """Ahead of time: make sure a saved state exists for the stable prefix of `messages` (everything before
+        the last message's content), evaluating and saving it if not. Nothing is generated."""
+        self.load()
+        assert self._warm is not None
+        with self._lock:
+            return self._warm.prepare(messages, prefix, load=False)
 
     def _grammar(self, schema: dict) -> Any:
         key = json.dumps(schema)  # key order matters: the grammar emits properties in the schema's order
@@ -142,9 +146,11 @@ class LocalModel:
 
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
              stop: list[str] | None = None, schema: dict | None = None, top_p: float = 0.95,
-             top_k: int = 40) -> Reply:
+             top_k: int = 40, prefix: PromptPrefix | None = None) -> Reply:
         """One chat completion with the model's own template; `schema` constrains the reply to JSON that fits it.
-        The prompt is measured first: one that leaves no room for `max_tokens` raises ContextOverflowError."""
+        The prompt is measured first: one that leaves no room for `max_tokens` raises ContextOverflowError.
+        With `prefix`, the messages before the last are a stable prefix: its saved state is loaded if there
+        is one (those tokens count as cached), else it is evaluated and saved for later processes."""
         self.load()
         check_fits(self.name, self.prompt_tokens(messages), max_tokens, self.n_ctx)
         with self._lock:
@@ -152,6 +158,9 @@ class LocalModel:
             before = list(llm._input_ids[: llm.n_tokens])
             grammar = self._grammar(schema) if schema is not None else None
             with Stopwatch() as sw:
+                warm = self._warm.prepare(messages, prefix) if prefix is not None and self._warm else Outcome()
+                if warm.how == "restored":
+                    before = list(llm._input_ids[: llm.n_tokens])
                 try:
                     out = llm.create_chat_completion(
                         messages=messages, seed=seed, temperature=temperature, top_p=top_p, top_k=top_k,
@@ -160,13 +169,14 @@ class LocalModel:
                     raise ModelRuntimeError(f"model '{self.name}' failed: {exc}") from exc
             u = out["usage"]
             after = list(llm._input_ids[: u["prompt_tokens"]])
-            cached = min(_common_prefix(before, after), max(u["prompt_tokens"] - 1, 0))
+            cached = min(common_prefix(before, after), max(u["prompt_tokens"] - 1, 0))
         choice = out["choices"][0]
         return Reply(
             text=choice["message"]["content"] or "",
             finish_reason=choice.get("finish_reason") or "stop",
             usage=Usage(prompt_tokens=u["prompt_tokens"], completion_tokens=u["completion_tokens"],
-                        cached_tokens=cached, wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds),
+                        cached_tokens=cached, restored_tokens=min(warm.restored, cached),
+                        wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds),
         )
 
 
@@ -189,10 +199,10 @@ class LocalModel:
         return llm.tokenize(result.prompt.encode("utf-8"), add_bos=not result.added_special, special=True)
 
     def chat_forced(self, messages: list[Message], *, schema: dict, max_tokens: int,
-                    draft: bool = True) -> Reply | None:
+                    draft: bool = True, prefix: PromptPrefix | None = None) -> Reply | None:
         """The greedy reply that fits `schema`, with the spans the schema forces appended in batches
         (`guided.decode`): the free greedy reply when that fits, else the grammar's. None when this model or
-        schema is not one the forced path handles (the caller then uses `chat`)."""
+        schema is not one the forced path handles (the caller then uses `chat`). `prefix` as for `chat`."""
         from . import forced, guided
         from .guess import Drafter
 
@@ -205,15 +215,23 @@ class LocalModel:
                 return None
             if self._vocab is None:
                 self._vocab = guided.Vocab(self._llm)
+            llm = self._llm
+            before = list(llm._input_ids[: llm.n_tokens])
             with Stopwatch() as sw:
+                warm = self._warm.prepare(messages, prefix) if prefix is not None and self._warm else Outcome()
+                if warm.how == "restored":
+                    before = list(llm._input_ids[: llm.n_tokens])
                 try:
                     drafter = Drafter.for_chat(messages) if draft else None
-                    out = guided.decode(self._llm, prompt, schema, max_tokens, self._vocab, drafter=drafter)
+                    out = guided.decode(llm, prompt, schema, max_tokens, self._vocab, drafter=drafter)
                 except (ValueError, RuntimeError) as exc:
                     raise ModelRuntimeError(f"model '{self.name}' failed: {exc}") from exc
+            # a prefix evaluated just now (to save its state) was not reused: only what was there or was loaded
+            cached = min(out.cached, common_prefix(before, prompt))
         return Reply(text=out.text, finish_reason=out.finish_reason,
                      usage=Usage(prompt_tokens=len(prompt), completion_tokens=len(out.tokens),
-                                 forced_tokens=out.forced, cached_tokens=out.cached, wall_seconds=sw.wall_seconds,
+                                 forced_tokens=out.forced, cached_tokens=cached,
+                                 restored_tokens=min(warm.restored, cached), wall_seconds=sw.wall_seconds,
                                  cpu_seconds=sw.cpu_seconds))
 
 
@@ -229,4 +247,4 @@ def open_model(role: str, name: str | None = None, *, verbose: bool = False) -> 
     return _OPEN[spec.name]
 
 
-__all__ = ["ChatModel", "LocalModel", "Reply", "check_fits", "open_model", "prompt_size"]
+__all__ = ["ChatModel", "LocalModel", "PromptPrefix", "Reply", "check_fits", "open_model", "prompt_size"]

@@ -29,6 +29,7 @@ class Usage(BaseModel):
     completion_tokens: int = 0
     cached_tokens: int = 0
     forced_tokens: int = 0  # reply tokens the schema forced, appended in batches (part of completion_tokens)
+    restored_tokens: int = 0  # of the cached tokens, those loaded from a saved state (runner/warmstate.py)
     wall_seconds: float = 0.0
     cpu_seconds: float = 0.0
 
@@ -38,6 +39,7 @@ class Usage(BaseModel):
             completion_tokens=self.completion_tokens + other.completion_tokens,
             cached_tokens=self.cached_tokens + other.cached_tokens,
             forced_tokens=self.forced_tokens + other.forced_tokens,
+            restored_tokens=self.restored_tokens + other.restored_tokens,
             wall_seconds=self.wall_seconds + other.wall_seconds,
             cpu_seconds=self.cpu_seconds + other.cpu_seconds,
         )

@@ -50,10 +50,14 @@ class Cpu(BaseModel):
 
 
 class Tokens(BaseModel):
+    """Prompt tokens (of which `cached` were reused rather than evaluated; `restored` of those came from a saved
+    state of a stable prompt prefix, loaded from disk) and generated tokens."""
+
     prompt: int = 0
     completion: int = 0
     cached: int = 0
     forced: int = 0  # of the completion tokens, those the schema forced, appended in batches
+    restored: int = 0  # of the cached tokens, those loaded from a saved warm state
 
 
 class AnswerRecord(BaseModel):

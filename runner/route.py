@@ -14,6 +14,7 @@ from pydantic import BaseModel
 from . import prompts
 from .errors import ContextOverflowError
 from .llm import ChatModel, LocalModel, Message, prompt_size
+from .warmstate import PromptPrefix
 from .meter import Stopwatch, Usage
 from .shortlist import shortlist
 from .tools import Card
@@ -28,6 +29,8 @@ NONE = "none"
 # (scores 116 against 4.3); cards under a tenth of the best are that kind of chance match.
 SHORTLIST_SIZE = 8
 SHORTLIST_FLOOR = 0.1
+# Everything before the question is the same for every question: its llama.cpp state is kept on disk.
+ROUTER_PREFIX = PromptPrefix("router", (ROUTER_TEMPLATE, ROUTER_NONE_TEMPLATE))
 
 
 class Route(BaseModel):
@@ -172,7 +175,8 @@ def route(model: ChatModel, cards: list[Card], question: str, *, seed: int = 0,
     cards = fitted.cards
     names = router_names(cards)
     reply = model.chat(fitted.messages, seed=seed, temperature=0.0, max_tokens=reply_budget(cards),
-                       schema=router_schema(cards))
+                       schema=router_schema(cards),
+                       prefix=None if fitted.shortlisted else ROUTER_PREFIX)  # a shortlist varies by question
     try:
         chosen = json.loads(reply.text)
     except ValueError:

@@ -140,7 +140,7 @@ class _Work:
                     fill=round(self.fill_cpu, 4)),
             wall_seconds=round(u.wall_seconds + self.tool_wall, 4),
             tokens=Tokens(prompt=u.prompt_tokens, completion=u.completion_tokens, cached=u.cached_tokens,
-                          forced=u.forced_tokens))
+                          forced=u.forced_tokens, restored=u.restored_tokens))
 
 
 class Engine:
@@ -416,7 +416,8 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
     if answered:
         stats["all"] = cpu_stats([r.cpu.total for r in answered])
     tokens = Tokens(prompt=sum(r.tokens.prompt for r in records), completion=sum(r.tokens.completion for r in records),
-                    cached=sum(r.tokens.cached for r in records), forced=sum(r.tokens.forced for r in records))
+                    cached=sum(r.tokens.cached for r in records), forced=sum(r.tokens.forced for r in records),
+                    restored=sum(r.tokens.restored for r in records))
     rate, source = prompt_cpu_per_token(records)
     tool_cpu = sum(r.cpu.tool for r in records)
     total_cpu = process_cpu_seconds + tool_cpu

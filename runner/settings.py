@@ -42,6 +42,11 @@ def shipped_path(name: str) -> Path:
     return packaged if packaged.exists() else PROJECT_ROOT / name
 
 
+def warm_dir() -> Path:
+    """Saved llama.cpp states of stable prompt prefixes (runner/warmstate.py)."""
+    return home() / "warm"
+
+
 def registry_file() -> Path:
     """The shipped models.toml (override with JIGWRIGHT_MODELS_TOML)."""
     env = os.environ.get("JIGWRIGHT_MODELS_TOML")

@@ -12,6 +12,7 @@ from typing import Callable
 
 from runner.llm import Message, Reply, check_fits
 from runner.meter import Usage
+from runner.warmstate import PromptPrefix
 
 Script = list[str] | Callable[..., "str | Reply"]
 
@@ -24,6 +25,7 @@ class Call:
     max_tokens: int
     stop: list[str] | None
     schema: dict | None
+    prefix: PromptPrefix | None = None
 
     @property
     def system(self) -> str:
@@ -60,10 +62,10 @@ class ScriptedModel:
         return len(prompt_tokens(messages))
 
     def chat(self, messages: list[Message], *, seed: int, temperature: float, max_tokens: int,
-             stop: list[str] | None = None, schema: dict | None = None) -> Reply:
+             stop: list[str] | None = None, schema: dict | None = None, prefix: PromptPrefix | None = None) -> Reply:
         if self.n_ctx is not None:
             check_fits(self.name, self.prompt_tokens(messages), max_tokens, self.n_ctx)
-        self.calls.append(Call(list(messages), seed, temperature, max_tokens, stop, schema))
+        self.calls.append(Call(list(messages), seed, temperature, max_tokens, stop, schema, prefix))
         if callable(self.replies):
             out = self.replies(messages, seed=seed, temperature=temperature, max_tokens=max_tokens, stop=stop,
                                schema=schema)
