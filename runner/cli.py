@@ -479,6 +479,7 @@ def _check_by_hand(work, code: str, where: str, origin: str, executor_name: Opti
                                f"`jigwright tools edit {report.tool}` again")
     err.print(f"'{report.tool}' verified and stored ({origin}); it now answers its questions: "
               f"`jigwright answer QUEUE.jsonl`", highlight=False)
+    _warm_states(emodel)  # the router prompt now lists this tool
 
 
 @tools_app.command("edit")
