@@ -17,16 +17,19 @@ from typing import Any, Callable, Iterator
 
 from pydantic import BaseModel, Field, ValidationError
 
-from . import prompts, readwords, shapecheck
+from . import probe, prompts, readwords, shapecheck
 from .errors import InputError
 from .execute import REL_TOL, Filled, answers_match, fill_arguments
 from .fingerprint import code_fingerprint
 from .llm import ChatModel, Message
 from .meter import Usage
+from .sandbox import Limits
 from .store import ToolStore
 from .tools import Card, Demo, ExampleCheck, Provenance, Tool, slug
 
 STEPS = ("shape", "draft", "repair", "verify", "card")
+# a probe input is a guess near the family's domain: a candidate that runs long on it just does not count
+PROBE_LIMITS = Limits(cpu_seconds=0.5, wall_seconds=2.0)
 STRATEGIES = ("direct", "search", "choose", "simulate", "permute")
 TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
              "strategy_direct.j2", "strategy_search.j2", "strategy_choose.j2", "strategy_permute.j2",
@@ -228,6 +231,9 @@ class BuildReport(BaseModel):
     failures: list[str] = Field(default_factory=list)
     budget_cpu_minutes: float | None = None
     runner: str = ""
+    contested: list[dict[str, Any]] = Field(default_factory=list)  # probe.Contest records: inputs candidates disagree on
+    agreement: float | None = None  # share of probe inputs on which every other passing candidate agrees with the tool
+    probe_note: str = ""
     reused: str = ""  # how a stored tool of an older runner was reused ("" when built or found as is)
 
     @property
@@ -851,6 +857,28 @@ class Builder:
             self.report.stopped = str(exc)
         return self._finish(best)
 
+    def probe(self, cand: Candidate, shape: ShapeCandidate) -> None:
+        """Run the chosen tool and every other candidate that passed the drafting examples under the same design
+        on mutated and schema-drawn arguments (runner/probe.py); record the contested inputs, phrased like a
+        drafting question where the values swap one for one, and how often the others agree with the tool."""
+        if shape.schema is None:
+            return
+        self.progress("verify", "probing for inputs the examples miss")
+        codes = [cand.code] + [c.code for c, s in self.passing if s.objects == shape.objects and c.code != cand.code]
+        inputs = probe.probe_inputs(shape.schema, shape.objects, seed=self.settings.seed)
+
+        def run(code: str, args: dict[str, Any]) -> tuple[bool, Any]:
+            res = self.sandbox.run(code, args, limits=PROBE_LIMITS)
+            return res.status == "ok", res.value
+
+        found = probe.compare(codes, inputs, run)
+        demos = [(e.question, o) for e, o in zip(self.drafting, shape.objects)] if not shape.conversions else []
+        for c in found.contested:
+            c.question = probe.phrase(c.arguments, demos)
+        self.report.contested = [c.model_dump() for c in found.contested]
+        self.report.agreement = found.agreement
+        self.report.probe_note = (found.note or f"{found.inputs} probe inputs, {found.candidates} passing candidates")
+
     def _finish(self, best: list) -> tuple[Candidate | None, ShapeCandidate | None, Card | None]:
         if best and not best[0][0].failed_at:
             self.report.verified_cpu = self.report.total_cpu
@@ -963,6 +991,8 @@ def build(family: Family, *, builder: ChatModel, executor: ChatModel, sandbox: A
         report.failures.append(f"best attempt kept unverified: {cand.strategy}, {cand.draft_ok}/{len(b.drafting)} "
                                "drafting examples (`jigwright tools edit` finishes it by hand)")
     report.verified = not cand.failed_at and bool(cand.checks) and all(c.ok for c in cand.checks)
+    if not cand.failed_at:
+        b.probe(cand, shape)
     report.held_out_score = max(cand.confirm_score, 0.0)
     report.choose_score = max(cand.score, 0.0)
     report.strategy = cand.strategy

@@ -292,6 +292,8 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
               executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
               force: bool = typer.Option(False, "--force", help="Build again even if the tool store has this build."),
               trace: Optional[Path] = typer.Option(None, "--trace", help="Append every builder prompt, reply and check to this JSONL file."),
+              ask: bool = typer.Option(False, "--ask", help="Ask in the terminal about the contested inputs the build "
+                                                            "finds; answered ones join the family file and the build runs again."),
               as_json: bool = typer.Option(False, "--json", help="The build report as JSON on stdout.")) -> None:
     """Build a tool from solved examples. The builder writes it, held-out examples verify it, and the tool store
     keeps it."""
@@ -333,6 +335,17 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
                 print_cut(out, f"  - {' '.join(f.split())}")
     if report.reused:
         out.print(f"reused: {report.reused}", highlight=False)
+    if report.contested and not as_json:
+        answered = _contested(report, family, family_file, ask)
+        if answered:
+            out.print(f"{answered} answered case(s) added to {family_file}; building again", highlight=False)
+            with ToolStore() as store, Sandbox() as sandbox, bar:
+                tool, report = builder_mod.build(builder_mod.load_family(family_file, name, description),
+                                                 builder=bmodel, executor=emodel, sandbox=sandbox, store=store,
+                                                 settings=settings_, builder_sha=bmodel.spec.sha256,
+                                                 executor_sha=emodel.spec.sha256, force=True, progress=on)
+            out.print(build_table(report))
+            out.print(build_verdict(report), highlight=False)
     if not report.verified:
         if report.cache_hit:
             more = (f", or give a --budget-cpu-min above {report.budget_cpu_minutes:g}"
@@ -341,6 +354,39 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
         raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
                                + (" (an unverified best attempt is kept: `jigwright tools review " + family.name + "`)"
                                   if tool else ""))
+
+
+def _contested(report, family, family_file: Path, ask: bool) -> int:
+    """Show the contested inputs of a build, write them beside the family file with empty answers, and with
+    --ask put the phrased ones to the person; answered ones are appended to the family file. How many were."""
+    from .probe import Contest, ProbeReport, contested_lines, write_atomic
+
+    found = ProbeReport(contested=[Contest.model_validate(c) for c in report.contested])
+    lines = contested_lines(found, family.name)
+    where = family_file.with_name(f"{family_file.stem}.contested.jsonl")
+    write_atomic(where, "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in lines))
+    share = f"{report.agreement:.0%}" if report.agreement is not None else "n/a"
+    err.print(f"[yellow]{len(lines)} contested input(s)[/yellow]: candidates that passed every example disagree "
+              f"on them (the other candidates agree with this tool on {share} of probe inputs). Written with empty "
+              f"answers to {where}: answer them and add them to {family_file}, or build again with --ask.",
+              highlight=False, soft_wrap=True)
+    if not ask:
+        return 0
+    added = []
+    for line in lines:
+        if "arguments" in line:  # not phrased as a question: it cannot join the examples as one
+            continue
+        out.print(f"\n{line['question']}\n  (the candidates answered: {', '.join(map(str, line['candidate_answers']))})",
+                  highlight=False)
+        reply = typer.prompt("  your answer (blank to skip)", default="", show_default=False).strip()
+        if reply:
+            value: object = int(reply) if reply.lstrip("-").isdigit() else reply
+            added.append({"id": line["id"], "question": line["question"], "answer": value})
+    if added:
+        old = family_file.read_text(encoding="utf-8")
+        sep = "" if not old or old.endswith("\n") else "\n"
+        write_atomic(family_file, old + sep + "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in added))
+    return len(added)
 
 
 @tools_app.command("list")
@@ -404,6 +450,12 @@ def tools_review(name: str = typer.Argument(..., help="Tool name."),
     roles = example_roles(tool.report)
     if roles:
         out.print(roles, highlight=False)
+    contested = (tool.report or {}).get("contested") or []
+    agreement = (tool.report or {}).get("agreement")
+    if contested or agreement is not None:
+        out.print(f"probe: {len(contested)} contested input(s) open; the other passing candidates agree with this "
+                  f"tool on {agreement:.0%} of probe inputs" if agreement is not None else
+                  f"probe: {len(contested)} contested input(s) open", highlight=False)
     out.print(Syntax(tool.code, "python", line_numbers=True))
     out.print("arguments (JSON Schema):")
     out.print_json(json.dumps(tool.card.schema_))

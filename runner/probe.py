@@ -281,3 +281,22 @@ def contested_lines(report: ProbeReport, family: str) -> list[dict[str, Any]]:
             line["arguments"] = c.arguments
         lines.append(line)
     return lines
+
+
+def write_atomic(path: "Path", text: str) -> None:
+    """Write `text` to `path` whole or not at all (a temporary file in the same folder, then a rename)."""
+    import os
+    import tempfile
+    from pathlib import Path
+
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise

@@ -117,3 +117,45 @@ def test_one_candidate_has_nothing_to_compare(sandbox):
     lines = probe.contested_lines(probe.ProbeReport(contested=[probe.Contest(arguments={"a": 1}, answers=[1, 2])]),
                                   "toy")
     assert lines[0]["answer"] == "" and lines[0]["arguments"] == {"a": 1} and re.match(r"toy-contested-01", lines[0]["id"])
+
+
+def test_a_build_reports_the_contested_late_departure(sandbox, tmp_path):
+    """End to end with scripted models: the remainder slip is drafted first and verifies on examples from the
+    old corner; the probe finds the inputs where the right candidate disagrees, phrased as questions."""
+    from runner import build as B
+    from runner.store import ToolStore
+    from tests.doubles import ScriptedModel
+
+    names = ["Curlew", "Dunlin", "Godwit", "Tern", "Gannet", "Fulmar", "Smew", "Eider", "Auk", "Petrel"]
+    lines, table = [], {}
+    for i, (p1, p2, t) in enumerate([(6, 8, 20), (4, 17, 30), (5, 7, 12), (3, 10, 13), (9, 4, 21), (6, 11, 27),
+                                     (7, 3, 16), (8, 5, 33), (10, 7, 24)]):
+        a, b = names[i], names[i + 1]
+        args = {"boats": [{"name": a, "start": t % p1, "period": p1}, {"name": b, "start": t % p2, "period": p2}]}
+        q = (f"The {a} leaves at minute {t % p1} and then every {p1} minutes. The {b} leaves at minute {t % p2} and "
+             f"then every {p2} minutes. At what minute do both boats first leave together?")
+        lines.append({"id": f"d{i}", "question": q, "answer": reference(args)})
+        table[q] = args
+    f = tmp_path / "departures.jsonl"
+    f.write_text("".join(json.dumps(x) + "\n" for x in lines))
+    family = B.load_family(f, name="toy-departures", description="first minute all boats leave together")
+    shape = json.dumps({"arguments": [table[x["question"]] for x in lines[:3]]})
+    drafts = [f"```python\n{REMAINDERS_ONLY.strip()}\n```", f"```python\n{RIGHT.strip()}\n```"]
+
+    def builder_reply(messages, **kw):
+        return shape if messages[0]["content"].startswith("You design the arguments") else drafts.pop(0)
+
+    executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = B.build(family, builder=ScriptedModel("builder", builder_reply), executor=executor,
+                               sandbox=sandbox, store=store, builder_sha="b" * 64, executor_sha="e" * 64,
+                               settings=B.BuildSettings(draft_samples=2, shape_samples=1, strategies=["direct"]))
+    assert report.verified and tool is not None
+    assert report.contested, report.probe_note
+    assert report.agreement is not None and report.agreement < 1
+    phrased = [c for c in report.contested if c["question"]]
+    assert phrased, "no contested input could be phrased like a drafting question"
+    for c in phrased:
+        args = c["arguments"]
+        assert reference(args) in c["answers"] and c["chosen"] != reference(args)
+        assert all(str(b["start"]) in c["question"] for b in args["boats"])
