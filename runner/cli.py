@@ -680,6 +680,8 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
             builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
+            workers: int = typer.Option(0, "--workers", min=0, help="Answer on N workers (Ray; pip install 'jigwright[cluster]'); 0: in this process."),
+            cluster: Optional[str] = typer.Option(None, "--cluster", help="Join the Ray cluster at this address instead of starting Ray here (with --workers)."),
             expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
             retry_failed: bool = typer.Option(False, "--retry-failed", help="Answer again the tasks whose newest record failed or is an error."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
@@ -693,6 +695,9 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
     it has none); a task that fails in any other way (too long for the context, a model or sandbox error) gets
     an error record of its own and the queue goes on. Ctrl-C once: finish the current task and stop; twice:
     stop at once. Either way the answers file stays valid JSONL.
+
+    With --workers N the tasks are answered by N workers (each loads its own models; every node needs the
+    model files and the same Jigwright version); this process still writes the one answers file.
     """
     from .errors import InputError
     from .runloop import default_out, local_setup, run_queue
@@ -702,10 +707,22 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
     target = default_out(queue) if out_file is None else (None if out_file == "-" else Path(out_file))
     if out_file is None and target is None:
         raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
-    setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
-    _warm_states(setup.executor, [t.card for t in setup.tools])
+    if cluster is not None and workers == 0:
+        raise InputError("--cluster needs --workers N: how many workers to start on the cluster")
+    if workers and follow:
+        raise InputError("--follow answers lines as they arrive, in this process: drop --workers")
+    if not workers:
+        setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
+        _warm_states(setup.executor, [t.card for t in setup.tools])
     with _RunProgress(quiet=STATE["verbose"]) as progress:
-        report = run_queue(queue, target, options, setup, follow=follow, progress=progress)
+        if workers:
+            from .cluster import ClusterOptions, answer_on_workers
+
+            copts = ClusterOptions(workers=workers, address=cluster, threads=max(threads, 1), executor_name=executor,
+                                   builder_name=builder, verbose=STATE["verbose"])
+            report = answer_on_workers(queue, target, options, copts, progress=progress)
+        else:
+            report = run_queue(queue, target, options, setup, follow=follow, progress=progress)
     console = err if target is None else out  # with --out -, stdout carries the answer records
     if as_json:
         console.print_json(report.model_dump_json())

@@ -100,3 +100,9 @@ class StoreError(JigwrightError):
 
 class ModelLoadError(ModelRuntimeError):
     """llama.cpp could not load a model file at all (every task would fail the same way)."""
+
+
+class ClusterError(JigwrightError):
+    """A run on many workers could not start or go on: Ray missing, a worker unlike the driver, every worker gone."""
+
+    exit_code = 17

@@ -80,6 +80,8 @@ class AnswerRecord(BaseModel):
     cpu: Cpu = Field(default_factory=Cpu)
     wall_seconds: float = 0.0
     tokens: Tokens = Field(default_factory=Tokens)
+    node: str | None = Field(None, description="the machine of the worker that answered (runs with --workers)")
+    worker: str | None = Field(None, description="the id of the worker that answered (runs with --workers)")
 
 
 @dataclass(frozen=True)

@@ -15,9 +15,10 @@ from __future__ import annotations
 import math
 import signal
 import threading
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Literal, Protocol
+from typing import Any, Callable, Iterable, Iterator, Literal, Protocol
 
 from pydantic import BaseModel, Field
 
@@ -479,26 +480,33 @@ class RunLoop:
             self.skipped += 1
         return not done
 
+    def _journalled(self, work: _Work) -> bool:
+        """Take a task's route from the journal of an earlier, interrupted run; False when it holds none."""
+        kept = self.journal.get(work.task)
+        if kept is None:
+            return False
+        try:
+            work.route = Route.model_validate(kept)
+        except ValueError:
+            work.route = None
+            return False
+        work.usage = work.usage + work.route.usage
+        if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
+            work.error = work.route.note
+        self.routes_reused += 1
+        return True
+
     def _route(self, work: _Work) -> AnswerRecord | None:
         """Route a task, or take its decision from the journal of an earlier, interrupted run."""
-        kept = self.journal.get(work.task)
-        if kept is not None:
-            try:
-                work.route = Route.model_validate(kept)
-                work.usage = work.usage + work.route.usage
-                if work.route.note and work.route.tool == NONE_ROUTE and work.route.chosen != NONE_ROUTE:
-                    work.error = work.route.note
-                self.routes_reused += 1
-                return None
-            except ValueError:
-                work.route = None
+        if self._journalled(work):
+            return None
         failed = self.engine.try_route(work)
         if failed is None and work.route is not None:
             self.journal.add(work.task, work.route.model_dump(mode="json"))
         return failed
 
-    def run_batch(self, items: Iterable[Task | BadLine]) -> None:
-        """Route everything first, then answer grouped by tool, then the fallbacks together."""
+    def take_pending(self, items: Iterable[Task | BadLine]) -> list[Task]:
+        """The tasks still to answer; bad lines not yet reported get their error records now."""
         tasks: list[Task] = []
         for item in items:
             if not self._pending(item):
@@ -507,6 +515,11 @@ class RunLoop:
                 self._write(item.record())
             else:
                 tasks.append(item)
+        return tasks
+
+    def run_batch(self, items: Iterable[Task | BadLine]) -> None:
+        """Route everything first, then answer grouped by tool, then the fallbacks together."""
+        tasks = self.take_pending(items)
         if not self.engine.options.group:
             self.progress.phase("answering", len(tasks))
             for task in tasks:
@@ -566,8 +579,9 @@ class RunLoop:
 
 
 def run(loop: RunLoop, reader: QueueReader, *, follow: bool, out: str, load_cpu_seconds: Callable[[], float],
-        poll: float = 0.5) -> RunReport:
-    """Run the loop over the queue under the Ctrl-C handler and measure it; the report notes an interruption."""
+        poll: float = 0.5, worker_cpu_seconds: Callable[[], float] = lambda: 0.0) -> RunReport:
+    """Run the loop over the queue under the Ctrl-C handler and measure it; the report notes an interruption.
+    `worker_cpu_seconds` adds the CPU of processes that answered for this one (workers of a cluster run)."""
     interrupted = False
     with Stopwatch() as sw, loop.stop:
         try:
@@ -581,7 +595,7 @@ def run(loop: RunLoop, reader: QueueReader, *, follow: bool, out: str, load_cpu_
             loop.journal.close(finished=False)
         interrupted = interrupted or loop.stop.requested
     return summarise(loop.records, queue=reader.source, out=out, skipped=loop.skipped, wall_seconds=sw.wall_seconds,
-                     process_cpu_seconds=sw.cpu_seconds, load_cpu_seconds=load_cpu_seconds(),
+                     process_cpu_seconds=sw.cpu_seconds + worker_cpu_seconds(), load_cpu_seconds=load_cpu_seconds(),
                      repaired_bytes=loop.resumed.repaired_bytes, interrupted=interrupted,
                      superseded=loop.superseded, routes_reused=loop.routes_reused)
 
@@ -628,9 +642,17 @@ def local_model(role: str, name: str | None, threads: int, verbose: bool = False
 
 def local_setup(options: RunOptions, executor_name: str | None = None, builder_name: str | None = None,
                 verbose: bool = False, threads: int = 1) -> Setup:
-    """The verified tools of the tool store and the local models (the fallback model loads on first use).
-    A tool store that cannot be read is no reason to stop: with the fallback on, questions are answered
-    without tools and a note says why; with it off, the store's error stands."""
+    """The verified tools of the tool store and the local models (the fallback model loads on first use)."""
+    tools, notes = store_tools(options)
+    setup = model_setup(tools, options, executor_name, builder_name, verbose, threads)
+    setup.notes = notes
+    return setup
+
+
+def store_tools(options: RunOptions) -> tuple[list[Tool], list[str]]:
+    """The verified tools of the tool store and notes to show about it. A tool store that cannot be read is
+    no reason to stop: with the fallback on, questions are answered without tools and a note says why; with
+    it off, the store's error stands."""
     from .errors import StoreError
     from .store import ToolStore
 
@@ -644,8 +666,15 @@ def local_setup(options: RunOptions, executor_name: str | None = None, builder_n
             raise
         tools = []
         notes.append(f"{exc}: answering without tools")
+    return tools, notes
+
+
+def model_setup(tools: list[Tool], options: RunOptions, executor_name: str | None = None,
+                builder_name: str | None = None, verbose: bool = False, threads: int = 1) -> Setup:
+    """Given tools and the local models (the fallback model loads on first use): what a worker of a cluster
+    run uses, with the tools it was sent."""
     executor = local_model("executor", executor_name, threads, verbose)
-    setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor], notes=notes)
+    setup = Setup(tools=tools, executor=executor, fallback_model=None, opened=[executor])
 
     def fallback() -> ChatModel:
         model = executor if options.fallback == "executor" else local_model("builder", builder_name, threads, verbose)
@@ -656,25 +685,41 @@ def local_setup(options: RunOptions, executor_name: str | None = None, builder_n
     return setup
 
 
-def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *, follow: bool = False,
-              progress: Progress | None = None, poll: float = 0.5) -> RunReport:
-    """`jigwright answer`: resume the answers file, answer every pending task, report. `out=None` writes the
-    answer records to stdout instead (no resume)."""
+def open_queue(queue: str, out: Path | None) -> QueueReader:
+    """A reader of the queue, once it is known to exist and not to be the answers file itself."""
     from .errors import InputError
-    from .queue import journal_path, read_answers
-    from .sandbox import Sandbox
 
-    progress = progress or _Quiet()
     reader = QueueReader(queue)
     if not reader.is_stdin and not Path(queue).is_file():
         raise InputError(f"{queue}: no such queue file")
     if out is not None and not reader.is_stdin and out.resolve() == Path(queue).resolve():
         raise InputError(f"{out}: the answers file must not be the queue itself")
+    return reader
+
+
+@contextmanager
+def answers_file(out: Path | None, progress: Progress) -> Iterator[tuple[AnswerWriter, Resumed]]:
+    """The locked answers file and what an earlier run left in it (a partial last line cut off and said)."""
+    from .queue import read_answers
+
     with AnswerWriter(out) as writer:  # the lock first: never repair a file another run is writing
         resumed = read_answers(out) if out is not None else Resumed([])
         if resumed.repaired_bytes:
             progress.message(f"{out}: cut a partial last line ({resumed.repaired_bytes} bytes) left by an "
                              f"interrupted run")
+        yield writer, resumed
+
+
+def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *, follow: bool = False,
+              progress: Progress | None = None, poll: float = 0.5) -> RunReport:
+    """`jigwright answer`: resume the answers file, answer every pending task, report. `out=None` writes the
+    answer records to stdout instead (no resume)."""
+    from .queue import journal_path
+    from .sandbox import Sandbox
+
+    progress = progress or _Quiet()
+    reader = open_queue(queue, out)
+    with answers_file(out, progress) as (writer, resumed):
         for note in setup.notes:
             progress.message(note)
         if not setup.tools:

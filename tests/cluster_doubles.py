@@ -1,0 +1,36 @@
+"""Worker setups for the cluster tests: the scripted model double of test_runloop in each worker, with the
+failure a test asks for. They run inside Ray workers, so this folder must be on the workers' PYTHONPATH
+(test_cluster.py puts it there before starting Ray)."""
+
+from __future__ import annotations
+
+import os
+import signal
+import time
+from pathlib import Path
+
+from doubles import ScriptedModel
+from runner.runloop import RunOptions, Setup
+from runner.tools import Tool
+from test_runloop import scripted
+
+
+def scripted_setup(tools: list[Tool], options: RunOptions, pause: float = 0.0, kill_on: str | None = None,
+                   marker: str | None = None) -> Setup:
+    """The scripted executor (also the fallback). With `kill_on`, the first worker whose model is asked about
+    a question containing that text kills its own process (SIGKILL) and leaves `marker` behind, so the
+    worker the task goes to next answers it; without a marker, every worker asked dies."""
+    base = scripted(direct="Answer: kept")
+
+    def reply(messages, **kw):
+        if pause:
+            time.sleep(pause)
+        if kill_on and kill_on in messages[-1]["content"]:
+            if marker is None or not Path(marker).exists():
+                if marker is not None:
+                    Path(marker).write_text(str(os.getpid()))
+                os.kill(os.getpid(), signal.SIGKILL)
+        return base.replies(messages, **kw)
+
+    model = ScriptedModel("double", reply)
+    return Setup(tools=tools, executor=model, fallback_model=None, opened=[])
