@@ -11,7 +11,7 @@ JW := $(BIN)/jigwright
 $(STAMP): pyproject.toml
 	$(PY) -m venv $(VENV)
 	$(BIN)/python -m pip install -q --disable-pip-version-check --upgrade pip
-	CMAKE_BUILD_PARALLEL_LEVEL=$$(nproc) $(BIN)/python -m pip install --disable-pip-version-check -e '.[test]'
+	CMAKE_BUILD_PARALLEL_LEVEL=$$(nproc) $(BIN)/python -m pip install --disable-pip-version-check -e '.[test,cluster]'
 	touch $(STAMP)
 
 install: $(STAMP)

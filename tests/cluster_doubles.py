@@ -9,7 +9,7 @@ import signal
 import time
 from pathlib import Path
 
-from doubles import ScriptedModel
+from doubles import ScriptedModel, is_fill
 from runner.runloop import RunOptions, Setup
 from runner.tools import Tool
 from test_runloop import scripted
@@ -17,15 +17,15 @@ from test_runloop import scripted
 
 def scripted_setup(tools: list[Tool], options: RunOptions, pause: float = 0.0, kill_on: str | None = None,
                    marker: str | None = None) -> Setup:
-    """The scripted executor (also the fallback). With `kill_on`, the first worker whose model is asked about
-    a question containing that text kills its own process (SIGKILL) and leaves `marker` behind, so the
+    """The scripted executor (also the fallback). With `kill_on`, the first worker asked to fill the arguments
+    of a question containing that text kills its own process (SIGKILL) and leaves `marker` behind, so the
     worker the task goes to next answers it; without a marker, every worker asked dies."""
     base = scripted(direct="Answer: kept")
 
     def reply(messages, **kw):
         if pause:
             time.sleep(pause)
-        if kill_on and kill_on in messages[-1]["content"]:
+        if kill_on and is_fill(messages) and kill_on in messages[-1]["content"]:
             if marker is None or not Path(marker).exists():
                 if marker is not None:
                     Path(marker).write_text(str(os.getpid()))

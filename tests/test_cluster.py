@@ -75,3 +75,132 @@ def test_scripted_queue_is_answered_once_per_id_by_both_workers(local_ray, tmp_p
     again = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
                               setup=scripted_setup)
     assert (again.tasks, again.skipped) == (0, 10) and len(records(out)) == 10
+
+
+def test_a_worker_killed_mid_run_loses_and_duplicates_nothing(local_ray, tmp_path):
+    q = write_queue(tmp_path / "q.jsonl", _queue_of(8))
+    out = tmp_path / "out.jsonl"
+    marker = tmp_path / "killed"
+    report = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
+                               setup=functools.partial(scripted_setup, pause=0.05, kill_on="Add 3 and",
+                                                       marker=str(marker)))
+    assert marker.exists()  # a worker really died, while filling t3's arguments
+    recs = records(out)
+    assert sorted(r.id for r in recs) == sorted(f"t{i}" for i in range(8))  # each id once
+    t3 = next(r for r in recs if r.id == "t3")
+    assert t3.status == "tool" and t3.answer == 7 and t3.worker
+    assert report.tasks == 8 and report.by_tool == 8
+    # the survivor answered t3 and everything after the death
+    dead = int(marker.read_text())
+    assert all(r.status == "tool" for r in recs) and dead > 0
+
+
+def test_a_task_that_kills_every_worker_gets_an_error_record(local_ray, tmp_path):
+    q = write_queue(tmp_path / "q.jsonl", [{"id": "poison", "question": "Add 1 and 2."}])
+    out = tmp_path / "out.jsonl"
+    report = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
+                               setup=functools.partial(scripted_setup, kill_on="Add 1 and"))
+    (rec,) = records(out)
+    assert rec.id == "poison" and rec.status == "error" and "died 2 times" in rec.error
+    assert report.tasks == 1
+
+
+def _descendants(pid: int) -> set[int]:
+    """Process ids started (directly or not) by `pid`, from /proc."""
+    children: dict[int, list[int]] = {}
+    for d in Path("/proc").iterdir():
+        if d.name.isdigit():
+            try:
+                ppid = int((d / "stat").read_text().rsplit(")", 1)[1].split()[1])
+            except (OSError, IndexError, ValueError):
+                continue
+            children.setdefault(ppid, []).append(int(d.name))
+    out, todo = set(), [pid]
+    while todo:
+        for c in children.get(todo.pop(), []):
+            if c not in out:
+                out.add(c)
+                todo.append(c)
+    return out
+
+
+def _alive(pids: set[int]) -> set[int]:
+    alive = set()
+    for p in pids:
+        try:
+            state = Path(f"/proc/{p}/stat").read_text().rsplit(")", 1)[1].split()[0]
+        except OSError:
+            continue
+        if state != "Z":
+            alive.add(p)
+    return alive
+
+
+def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
+    tasks = _queue_of(12)
+    q = write_queue(tmp_path / "q.jsonl", tasks)
+    out = tmp_path / "out.jsonl"
+    cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+    started: set[int] = set()
+    try:
+        deadline = time.time() + 240
+        while time.time() < deadline and proc.poll() is None:
+            started |= _descendants(proc.pid)
+            if out.exists() and out.read_text().count("\n") >= 2:
+                break
+            time.sleep(0.1)
+        assert proc.poll() is None, "the run ended before it could be killed"
+        started |= _descendants(proc.pid)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+        first = [AnswerRecord.model_validate_json(l) for l in out.read_text().splitlines() if l.endswith("}")]
+        assert 2 <= len(first) < len(tasks)
+        # Ray's processes share the driver's fate: none is left running (its helper agent takes longest: it
+        # checks its parent every few seconds and gives up on the dead head only after its own timeouts)
+        deadline = time.time() + 120
+        while _alive(started) and time.time() < deadline:
+            time.sleep(0.5)
+        print(f"Ray's processes were gone {time.time() - deadline + 120:.0f} s after the kill")
+        assert not _alive(started), [Path(f"/proc/{p}/cmdline").read_bytes()[:40] for p in _alive(started)]
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+        assert done.returncode == 0, done.stderr[-2000:]
+        assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first))]  # answered, skipped
+        recs = records(out)
+        assert sorted(r.id for r in recs) == sorted(t["id"] for t in tasks)
+    finally:
+        for p in _alive(started):  # only processes this test started
+            os.kill(p, signal.SIGKILL)
+
+
+def test_a_worker_without_the_model_file_names_its_node_and_the_fetch_command(local_ray, tmp_path):
+    bare = tmp_path / "bare-node"
+    bare.mkdir()
+    q = write_queue(tmp_path / "q.jsonl", _queue_of(2))
+    out = tmp_path / "out.jsonl"
+    with pytest.raises(ModelMissingError) as caught:
+        answer_on_workers(str(q), out, RunOptions(fallback="executor"),
+                          two_workers(worker_env={"JIGWRIGHT_HOME": str(bare)}), tools=TOOLS)
+    message = str(caught.value)
+    assert f"node {os.uname().nodename}:" in message and "jigwright models fetch" in message
+    assert str(bare) in message and "\n" not in message
+    assert not out.exists() or out.read_text() == ""  # nothing answered, nothing lost
+
+
+def test_without_ray_the_run_loop_imports_and_workers_name_the_extra(tmp_path):
+    """A `ray` that cannot be imported (the extra not installed) stands first on the path."""
+    block = tmp_path / "noray"
+    block.mkdir()
+    (block / "ray.py").write_text("raise ImportError('ray is not installed here')\n")
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(block), str(ROOT)])}
+    probe = subprocess.run([sys.executable, "-c", "import runner.cli, runner.runloop, runner.cluster, sys; "
+                            "print('ray' in sys.modules and sys.modules['ray'] is not None)"],
+                           capture_output=True, text=True, env=env, timeout=120)
+    assert probe.returncode == 0 and probe.stdout.strip() == "False", probe.stderr
+    q = write_queue(tmp_path / "q.jsonl", _queue_of(2))
+    proc = subprocess.run([sys.executable, "-c", "from runner.cli import main; main()", "answer", str(q),
+                           "--workers", "2"],
+                          capture_output=True, text=True, env=env, timeout=120)
+    assert proc.returncode == ClusterError.exit_code, proc.stderr
+    assert "pip install 'jigwright[cluster]'" in proc.stderr
+    assert not (tmp_path / "q.answers.jsonl").exists() or (tmp_path / "q.answers.jsonl").read_text() == ""
