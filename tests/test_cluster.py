@@ -204,3 +204,28 @@ def test_without_ray_the_run_loop_imports_and_workers_name_the_extra(tmp_path):
     assert proc.returncode == ClusterError.exit_code, proc.stderr
     assert "pip install 'jigwright[cluster]'" in proc.stderr
     assert not (tmp_path / "q.answers.jsonl").exists() or (tmp_path / "q.answers.jsonl").read_text() == ""
+
+
+@pytest.mark.models
+def test_two_workers_answer_like_one_process(local_ray, tmp_home, tmp_path):
+    """The real default executor, on the same queue: same routes, arguments and answers from the run loop in
+    one process and from two workers."""
+    need_models()
+    from runner.runloop import model_setup, run_queue
+
+    rows = real_queue()
+    q = write_queue(tmp_path / "q.jsonl", [{"id": r["id"], "question": r["question"]} for r in rows])
+    options = RunOptions(fallback="executor")
+    one, two = tmp_path / "one.jsonl", tmp_path / "two.jsonl"
+    run_queue(str(q), one, options, model_setup(real_tools(), options, threads=1))
+    report = answer_on_workers(str(q), two, options, two_workers(worker_env={"JIGWRIGHT_HOME": str(tmp_home)}),
+                               tools=real_tools())
+    a, b = by_id([r.model_dump() for r in records(one)]), by_id([r.model_dump() for r in records(two)])
+    assert sorted(a) == sorted(b) == sorted(r["id"] for r in rows)
+    for r in rows:
+        x, y = a[r["id"]], b[r["id"]]
+        assert (x["route"], x["arguments"], x["answer"], x["status"]) == \
+               (y["route"], y["arguments"], y["answer"], y["status"]), (x, y)
+        assert x["node"] is None and y["node"] == os.uname().nodename and y["worker"]
+    assert len({b[r["id"]]["worker"] for r in rows}) == 2
+    assert report.by_tool == 4 and report.by_fallback == 1
