@@ -12,6 +12,7 @@ from typing import List, Optional
 import typer
 from rich import box
 from rich.console import Console
+from rich.markup import escape
 from rich.progress import BarColumn, DownloadColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 from rich.text import Text
@@ -279,7 +280,7 @@ def example_roles(report: dict) -> str:
 
 
 @app.command("build")
-def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL of solved examples (question, answer, optional id)."),
+def build_cmd(family_files: List[Path] = typer.Argument(..., help="Family files: JSONL of solved examples (question, answer, optional id); several are built one after another, or at once with --workers."),
               name: Optional[str] = typer.Option(None, "--name", help="Tool name (default: family.toml or folder name)."),
               description: Optional[str] = typer.Option(None, "--description", help="One line: what the questions ask."),
               samples: int = typer.Option(3, "--samples", min=1, help="Code samples per strategy."),
@@ -294,18 +295,73 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
               trace: Optional[Path] = typer.Option(None, "--trace", help="Append every builder prompt, reply and check to this JSONL file."),
               ask: bool = typer.Option(False, "--ask", help="Ask in the terminal about the contested inputs the build "
                                                             "finds; answered ones join the family file and the build runs again."),
+              workers: int = typer.Option(0, "--workers", min=0, help="Build on N workers at once, one family each (needs Ray: the 'cluster' extra)."),
+              cluster: Optional[str] = typer.Option(None, "--cluster", help="Join the Ray cluster at this address (with --workers)."),
+              threads: int = typer.Option(1, "--threads", min=1, help="llama.cpp threads per worker (with --workers)."),
               as_json: bool = typer.Option(False, "--json", help="The build report as JSON on stdout.")) -> None:
     """Build a tool from solved examples. The builder writes it, held-out examples verify it, and the tool store
     keeps it."""
+    from . import build as builder_mod
+    from .errors import InputError
+
+    if len(family_files) > 1 and (name or description):
+        raise InputError("--name and --description name one family: give one family file with them")
+    if cluster is not None and workers == 0:
+        raise InputError("--cluster needs --workers N: how many workers to start on the cluster")
+    if workers and ask:
+        raise InputError("--ask puts questions in this terminal during one build: drop --workers to use it")
+    if workers and trace:
+        raise InputError("--trace writes one process's builder calls: drop --workers to trace a build")
+    families = [builder_mod.load_family(f, name, description) for f in family_files]
+    settings_ = builder_mod.BuildSettings(draft_samples=samples, shape_samples=shape_samples, repair_rounds=rounds,
+                                          draft_examples=draft_examples, budget_cpu_minutes=budget_cpu_min, seed=seed)
+    caution()
+    if workers:
+        from .cluster import ClusterOptions, build_on_workers
+
+        copts = ClusterOptions(workers=workers, address=cluster, threads=threads, executor_name=executor_name,
+                               builder_name=builder_name, verbose=STATE["verbose"])
+        with _RunProgress(quiet=STATE["verbose"]) as progress:
+            outcomes = build_on_workers(families, settings_, copts, force=force, progress=progress)
+        if any(report.verified for _, _, report in outcomes):  # as after a build here: this machine's router
+            from .llm import open_model
+
+            _warm_states(open_model("executor", executor_name, verbose=STATE["verbose"]))
+    else:
+        outcomes = [(family, *_build_here(family, settings_, builder_name, executor_name, force, trace, ask, as_json))
+                    for family in families]
+    for family, tool, report in outcomes:
+        if as_json:
+            out.print_json(json.dumps(report.summary()))
+        else:
+            out.print(build_table(report))
+            out.print(build_verdict(report), highlight=False)
+            if not report.verified:
+                for f in report.failures[-5:]:
+                    print_cut(out, f"  - {' '.join(f.split())}")
+        if report.reused:
+            out.print(f"reused: {report.reused}", highlight=False)
+    failed = [(family, tool, report) for family, tool, report in outcomes if not report.verified]
+    for family, tool, report in failed:
+        if report.cache_hit:
+            more = (f", or give a --budget-cpu-min above {report.budget_cpu_minutes:g}"
+                    if report.stopped and report.budget_cpu_minutes is not None else "")
+            err.print(f"({family.name}: this exact build failed before; `--force` tries again{more}, or change "
+                      f"--seed or --samples)")
+    if failed:
+        raise BuildFailedError("no tool verified on its held-out examples for " + ", ".join(
+            f"'{family.name}'" + (f" (an unverified best attempt is kept: `jigwright tools review {family.name}`)"
+                                  if tool else "") for family, tool, _ in failed))
+
+
+def _build_here(family, settings_, builder_name: Optional[str], executor_name: Optional[str], force: bool,
+                trace: Optional[Path], ask: bool = False, as_json: bool = False):
+    """One build in this process, with its step-by-step progress."""
     from . import build as builder_mod
     from .llm import open_model
     from .sandbox import Sandbox
     from .store import ToolStore
 
-    family = builder_mod.load_family(family_file, name, description)
-    settings_ = builder_mod.BuildSettings(draft_samples=samples, shape_samples=shape_samples, repair_rounds=rounds,
-                                          draft_examples=draft_examples, budget_cpu_minutes=budget_cpu_min, seed=seed)
-    caution()
     bmodel = open_model("builder", builder_name, verbose=STATE["verbose"])
     emodel = open_model("executor", executor_name, verbose=STATE["verbose"])
     bar, on = _step_progress()
@@ -325,35 +381,19 @@ def build_cmd(family_file: Path = typer.Argument(..., help="Family file: JSONL o
         trace_fh.close()
     if report.verified:  # the router prompt now lists this tool: the first question after a build starts warm
         _warm_states(emodel)
-    if as_json:
-        out.print_json(json.dumps(report.summary()))
-    else:
+    if report.contested and not as_json:  # put contested inputs to the person, and build again if answered
         out.print(build_table(report))
         out.print(build_verdict(report), highlight=False)
-        if not report.verified:
-            for f in report.failures[-5:]:
-                print_cut(out, f"  - {' '.join(f.split())}")
-    if report.reused:
-        out.print(f"reused: {report.reused}", highlight=False)
-    if report.contested and not as_json:
-        answered = _contested(report, family, family_file, ask)
+        answered = _contested(report, family, Path(family.source), ask)
         if answered:
-            out.print(f"{answered} answered case(s) added to {family_file}; building again", highlight=False)
+            out.print(f"{answered} answered case(s) added to {family.source}; building again", highlight=False)
             with ToolStore() as store, Sandbox() as sandbox, bar:
-                tool, report = builder_mod.build(builder_mod.load_family(family_file, name, description),
+                tool, report = builder_mod.build(builder_mod.load_family(Path(family.source), family.name,
+                                                                         family.description),
                                                  builder=bmodel, executor=emodel, sandbox=sandbox, store=store,
                                                  settings=settings_, builder_sha=bmodel.spec.sha256,
                                                  executor_sha=emodel.spec.sha256, force=True, progress=on)
-            out.print(build_table(report))
-            out.print(build_verdict(report), highlight=False)
-    if not report.verified:
-        if report.cache_hit:
-            more = (f", or give a --budget-cpu-min above {report.budget_cpu_minutes:g}"
-                    if report.stopped and report.budget_cpu_minutes is not None else "")
-            err.print(f"(this exact build failed before; `--force` tries again{more}, or change --seed or --samples)")
-        raise BuildFailedError(f"no tool for '{family.name}' verified on its held-out examples"
-                               + (" (an unverified best attempt is kept: `jigwright tools review " + family.name + "`)"
-                                  if tool else ""))
+    return tool, report
 
 
 def _contested(report, family, family_file: Path, ask: bool) -> int:
@@ -1005,7 +1045,7 @@ def main() -> None:
     except JigwrightError as exc:
         if STATE["verbose"]:
             traceback.print_exc()
-        err.print(f"[red]error:[/red] {exc}", highlight=False, soft_wrap=True)
+        err.print(f"[red]error:[/red] {escape(str(exc))}", highlight=False, soft_wrap=True)
         sys.exit(exc.exit_code)
     except KeyboardInterrupt:
         err.print("interrupted")

@@ -34,3 +34,16 @@ def scripted_setup(tools: list[Tool], options: RunOptions, pause: float = 0.0, k
 
     model = ScriptedModel("double", reply)
     return Setup(tools=tools, executor=model, fallback_model=None, opened=[])
+
+
+def fee_models():
+    """A scripted builder that always designs the slipway-fee arguments and drafts the right function, and
+    the scripted executor of test_build (for the toy slipway-fee families)."""
+    from test_build import FEES, GOOD, executor_script, shape_reply
+
+    objects = [a for _, _, a in FEES[:3]]
+
+    def builder(messages, **kw):
+        return shape_reply(objects) if messages[0]["content"].startswith("You design the arguments") else GOOD
+
+    return ScriptedModel("builder", builder), ScriptedModel("executor", executor_script())
