@@ -3,7 +3,8 @@
 Both runs answer the same first N tasks of samples/queue.jsonl with the hand-made tools of bench/handmade.py
 (fallback: the executor), each on a fresh local Ray instance with one CPU per worker. Tasks per minute count
 from the first task to the last (Ray's start and the model loads are printed apart). The load average of the
-machine is printed before each run: on a shared machine other work takes cores from the workers. From the
+machine is printed before and after each run, and the cores the tasks kept busy (their CPU seconds over the
+wall time): on a shared machine other work takes cores from the workers. From the
 measured CPU seconds per task, it projects tasks per minute for a 16-core machine (16 one-thread workers)
 and a 4-node cluster of such machines, both at the ideal rate (every core answering) and at the efficiency
 measured here from 1 to 2 workers.
@@ -46,6 +47,8 @@ def one_run(workers: int, queue: Path, tmp: Path, tools: list) -> dict:
     return {"workers": workers, "tasks": report.tasks, "tasks_per_minute": report.tasks_per_minute,
             "answer_wall_seconds": report.wall_seconds, "start_wall_seconds": round(total_wall - report.wall_seconds, 1),
             "cpu_per_task": report.cpu_per_task["all"].mean if "all" in report.cpu_per_task else None,
+            "cores_used": round(report.task_cpu_seconds / report.wall_seconds, 2) if report.wall_seconds else 0.0,
+            "prompt_cache_share": report.savings.cached_share,
             "load_average_before": round(load_before, 2), "load_average_after": round(os.getloadavg()[0], 2),
             "tasks_per_worker": sorted(per_worker.values()),
             "answers": {r["id"]: (r["route"], r["answer"]) for r in records}}
@@ -91,7 +94,8 @@ def main() -> None:
     for r in result["runs"]:
         print(f"{r['workers']} worker(s): {r['tasks']} tasks in {r['answer_wall_seconds']:.1f} s = "
               f"{r['tasks_per_minute']:.2f} tasks/min (start {r['start_wall_seconds']:.1f} s; tasks per worker "
-              f"{r['tasks_per_worker']}; {r['cpu_per_task']:.2f} CPU s/task; load average {r['load_average_before']} "
+              f"{r['tasks_per_worker']}; {r['cpu_per_task']:.2f} CPU s/task; {r['cores_used']:.2f} cores busy "
+              f"answering; prompt cache {r['prompt_cache_share']:.0%}; load average {r['load_average_before']} "
               f"before, {r['load_average_after']} after)")
     print(f"speed-up with 2 workers: {speedup:.2f}x (goal >= 1.8x); same routes and answers: {result['same_answers']}")
     print(f"projection from {cpu:.2f} CPU s per task (one single-thread worker per core):")
