@@ -720,7 +720,7 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
             builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
-            workers: int = typer.Option(0, "--workers", min=0, help="Answer on N workers (Ray; pip install 'jigwright[cluster]'); 0: in this process."),
+            workers: int = typer.Option(0, "--workers", min=0, help="Answer on N workers (needs Ray: the 'cluster' extra); 0: in this process."),
             cluster: Optional[str] = typer.Option(None, "--cluster", help="Join the Ray cluster at this address instead of starting Ray here (with --workers)."),
             expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
             retry_failed: bool = typer.Option(False, "--retry-failed", help="Answer again the tasks whose newest record failed or is an error."),

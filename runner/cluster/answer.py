@@ -82,14 +82,14 @@ class AnswerWorker(WorkerBase):
 
 
 class ClusterLoop(RunLoop):
-    """The run loop's driver with the steps done by workers; records are written here, one per task. The
-    run options come from `options`: no Engine lives in the driver."""
+    """The run loop's driver with the steps done by workers; records are written here, one per task. Its
+    Engine is dormant: no model is loaded in the driver, the loop only reads its options."""
 
-    def __init__(self, pool: WorkerPool, options: RunOptions, writer: Any, resumed: Any = None,
+    def __init__(self, pool: WorkerPool, engine: Engine, writer: Any, resumed: Any = None,
                  progress: Progress | None = None, stop: StopFlag | None = None):
-        super().__init__(_OptionsOnly(options), writer, resumed, progress, stop)  # type: ignore[arg-type]
+        super().__init__(engine, writer, resumed, progress, stop)
         self.pool = pool
-        self.options = options
+        self.options = engine.options
 
     def run_batch(self, items: Iterable[Task | BadLine]) -> None:
         works = [_Work(t) for t in self.take_pending(items)]
@@ -134,11 +134,14 @@ class ClusterLoop(RunLoop):
         return onward if finished else None
 
 
-class _OptionsOnly:
-    """What a RunLoop reads from its engine (the options), for a driver that has no engine."""
+def dormant_engine(tools: list[Tool], options: RunOptions, opts: ClusterOptions, setup: MakeSetup | None) -> Engine:
+    """The Engine the workers hold, in the driver without its models loaded or a sandbox: what the run loop
+    reads from an engine (its options) without answering anything here."""
+    from ..runloop import model_setup
 
-    def __init__(self, options: RunOptions):
-        self.options = options
+    s = setup(tools, options) if setup else model_setup(tools, options, opts.executor_name, opts.builder_name,
+                                                         threads=opts.threads)
+    return Engine(s.tools, s.executor, None, options, s.fallback_model)
 
 
 def verified_tools() -> list[Tool]:
@@ -161,6 +164,7 @@ def answer_on_workers(queue: str, out: Path | None, options: RunOptions, opts: C
             progress.message("no verified tools in the tool store: every question goes to the fallback")
         args = (tools, options, opts.executor_name, opts.builder_name, opts.threads, opts.verbose, setup)
         with start_workers(AnswerWorker, args, opts, progress) as pool:
-            loop = ClusterLoop(pool, options, writer, resumed, progress, StopFlag(progress))
+            loop = ClusterLoop(pool, dormant_engine(tools, options, opts, setup), writer, resumed, progress,
+                               StopFlag(progress))
             return run(loop, reader, follow=False, out=str(out) if out else "-",
                        load_cpu_seconds=pool.load_cpu_seconds, worker_cpu_seconds=pool.cpu_seconds)
