@@ -168,7 +168,7 @@ def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
         assert not _alive(started), [Path(f"/proc/{p}/cmdline").read_bytes()[:40] for p in _alive(started)]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
         assert done.returncode == 0, done.stderr[-2000:]
-        assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first))]  # answered, skipped
+        assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first)), "0"]  # answered, skipped
         recs = records(out)
         assert sorted(r.id for r in recs) == sorted(t["id"] for t in tasks)
     finally:
@@ -256,3 +256,30 @@ def test_several_families_build_at_once_one_per_worker(local_ray, bare_home, tmp
         assert store.get("ramp-fees").held_out_score == 1.0
     again = build_on_workers(families, settings, two_workers(), models=fee_models, shas=("b" * 64, "e" * 64))
     assert all(report.cache_hit for _, _, report in again)  # the workers saw the driver's store
+
+
+def test_ctrl_c_finishes_the_tasks_in_hand_and_a_rerun_completes(tmp_path):
+    """Ctrl-C at a terminal reaches the whole process group, Ray's processes included."""
+    tasks = _queue_of(12)
+    q = write_queue(tmp_path / "q.jsonl", tasks)
+    out = tmp_path / "out.jsonl"
+    cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, start_new_session=True)
+    try:
+        deadline = time.time() + 240
+        while time.time() < deadline and proc.poll() is None:
+            if out.exists() and out.read_text().count("\n") >= 2:
+                break
+            time.sleep(0.1)
+        os.killpg(proc.pid, signal.SIGINT)
+        stdout, _ = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    answered, skipped, interrupted = map(int, stdout.split())
+    first = records(out)
+    assert interrupted == 1 and answered == len(first) < len(tasks) and skipped == 0
+    assert all(r.status == "tool" for r in first)  # the tasks in hand were finished, not cut off
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first)), "0"], done.stderr[-2000:]
+    assert sorted(r.id for r in records(out)) == sorted(t["id"] for t in tasks)
