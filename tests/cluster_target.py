@@ -24,7 +24,7 @@ def main() -> None:
     queue, out = sys.argv[1], Path(sys.argv[2])
     report = answer_on_workers(queue, out, RunOptions(fallback="executor"), ClusterOptions(workers=2), tools=TOOLS,
                                setup=functools.partial(scripted_setup, pause=0.2))
-    print(report.tasks, report.skipped, int(report.interrupted), flush=True)
+    print(report.tasks, report.skipped, int(report.interrupted), report.routes_reused, flush=True)
 
 
 if __name__ == "__main__":

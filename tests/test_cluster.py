@@ -78,6 +78,15 @@ def test_scripted_queue_is_answered_once_per_id_by_both_workers(local_ray, tmp_p
     again = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
                               setup=scripted_setup)
     assert (again.tasks, again.skipped) == (0, 10) and len(records(out)) == 10
+    # resume is by content: an edited question is answered again, its new record is the id's answer
+    lines = q.read_text().splitlines()
+    lines[2] = json.dumps({"id": "t2", "question": "Shout gull."})
+    q.write_text("\n".join(lines) + "\n")
+    edited = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
+                               setup=scripted_setup)
+    assert (edited.tasks, edited.skipped, edited.superseded) == (1, 9, 1)
+    newest = [r for r in records(out) if r.id == "t2"][-1]
+    assert newest.answer == "GULL" and newest.worker
 
 
 def test_a_worker_killed_mid_run_loses_and_duplicates_nothing(local_ray, tmp_path):
@@ -105,6 +114,7 @@ def test_a_task_that_kills_every_worker_gets_an_error_record(local_ray, tmp_path
                                setup=functools.partial(scripted_setup, kill_on="Add 1 and"))
     (rec,) = records(out)
     assert rec.id == "poison" and rec.status == "error" and "died 2 times" in rec.error
+    assert rec.error_kind == "tool"  # it killed them while its arguments were being filled
     assert report.tasks == 1
 
 
@@ -168,7 +178,9 @@ def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
         assert not _alive(started), [Path(f"/proc/{p}/cmdline").read_bytes()[:40] for p in _alive(started)]
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
         assert done.returncode == 0, done.stderr[-2000:]
-        assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first)), "0"]  # answered, skipped
+        # answered, skipped, not interrupted, and every route taken from the killed run's journal
+        rest = str(len(tasks) - len(first))
+        assert done.stdout.split() == [rest, str(len(first)), "0", rest], done.stderr[-2000:]
         recs = records(out)
         assert sorted(r.id for r in recs) == sorted(t["id"] for t in tasks)
     finally:
@@ -276,10 +288,11 @@ def test_ctrl_c_finishes_the_tasks_in_hand_and_a_rerun_completes(tmp_path):
     finally:
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGKILL)
-    answered, skipped, interrupted = map(int, stdout.split())
+    answered, skipped, interrupted, _ = map(int, stdout.split())
     first = records(out)
     assert interrupted == 1 and answered == len(first) < len(tasks) and skipped == 0
     assert all(r.status == "tool" for r in first)  # the tasks in hand were finished, not cut off
     done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
-    assert done.stdout.split() == [str(len(tasks) - len(first)), str(len(first)), "0"], done.stderr[-2000:]
+    rest = str(len(tasks) - len(first))  # the rest answered, with the routes of the interrupted run
+    assert done.stdout.split() == [rest, str(len(first)), "0", rest], done.stderr[-2000:]
     assert sorted(r.id for r in records(out)) == sorted(t["id"] for t in tasks)

@@ -13,13 +13,15 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from ..queue import NONE_ROUTE, AnswerRecord, BadLine, Task
+from ..queue import NONE_ROUTE, AnswerRecord, BadLine, RouteJournal, Task, journal_path
 from ..runloop import (Engine, Progress, RunLoop, RunOptions, RunReport, Setup, StopFlag, _Quiet, _Work,
-                       answers_file, open_queue, run)
+                       answers_file, open_queue, run, store_tools)
 from ..tools import Tool
 from .pool import ClusterOptions, Job, WorkerBase, WorkerPool, check_model_files, farm, import_ray, start_workers
 
 MakeSetup = Callable[[list[Tool], RunOptions], Setup]
+# The error kind of a task given up at each step (its worker died twice there).
+STAGE_OF_STEP = {"route": "route", "answer": "tool", "fall_back": "fallback", "whole": "tool"}
 
 
 class AnswerWorker(WorkerBase):
@@ -62,15 +64,15 @@ class AnswerWorker(WorkerBase):
 
     def step(self, name: str, work: _Work) -> tuple[AnswerRecord | None, _Work]:
         """One step of a task: `route`, `answer` (with its tool), `fall_back`, or `whole` (all of them).
-        Returns the task's record when it is final, else None and the task for the next step."""
+        Returns the task's record when it is final, else None and the task for the next step; a failure of
+        this task alone is its error record (the run loop's per-task isolation)."""
         assert self.engine is not None, "start() first"
         if name == "route":
-            self.engine.route(work)
-            return None, work
+            return self._signed(self.engine.try_route(work)), work
         if name == "answer":
-            return self._signed(self.engine.execute(work)), work
+            return self._signed(self.engine.try_execute(work)), work
         if name == "fall_back":
-            return self._signed(self.engine.fall_back(work)), work
+            return self._signed(self.engine.try_fall_back(work)), work
         if name == "whole":
             return self._signed(self.engine.answer(work.task)), work
         raise ValueError(f"unknown step {name!r}")
@@ -86,8 +88,8 @@ class ClusterLoop(RunLoop):
     Engine is dormant: no model is loaded in the driver, the loop only reads its options."""
 
     def __init__(self, pool: WorkerPool, engine: Engine, writer: Any, resumed: Any = None,
-                 progress: Progress | None = None, stop: StopFlag | None = None):
-        super().__init__(engine, writer, resumed, progress, stop)
+                 progress: Progress | None = None, stop: StopFlag | None = None, journal: RouteJournal | None = None):
+        super().__init__(engine, writer, resumed, progress, stop, journal)
         self.pool = pool
         self.options = engine.options
 
@@ -98,13 +100,19 @@ class ClusterLoop(RunLoop):
             self.spread("whole", works, lambda w: "whole")
             return
         self.progress.phase("routing", len(works))
-        routed = self.spread("route", works, lambda w: "route")
-        if routed is None:
-            return  # nothing of the unanswered tasks is written: a rerun routes them again
+        kept = [w for w in works if self._journalled(w)]  # routed by an earlier, interrupted run
+        for _ in kept:
+            self.progress.advance()
+        fresh = self.spread("route", [w for w in works if w.route is None], lambda w: "route")
+        if fresh is None:
+            return  # the decisions so far are in the journal: a rerun does not route them again
+        routed = kept + fresh
         self.progress.phase("answering", len(routed))
         later = self.spread("answer", routed, lambda w: w.route.tool if w.route else NONE_ROUTE)
-        if later is not None:
-            self.spread("fall_back", later, lambda w: "fall_back")
+        if later is None:
+            return
+        if self.spread("fall_back", later, lambda w: "fall_back") is not None:
+            self.journal.close(finished=True)
 
     def run_follow(self, reader: Any, poll: float = 0.5) -> None:
         from ..errors import InputError
@@ -123,10 +131,14 @@ class ClusterLoop(RunLoop):
             else:
                 onward.append(work)
                 if step == "route":
+                    if work.route is not None:
+                        self.journal.add(work.task, work.route.model_dump(mode="json"))
                     self.progress.advance()
 
         def lost(job: Job, why: str) -> None:
-            self._write(job.payload.record("error").model_copy(update={"error": why}))
+            work: _Work = job.payload
+            work.error = why
+            self._write(work.record("error", error_kind=STAGE_OF_STEP[step]))
 
         finished = farm(self.pool, [Job(w, key(w)) for w in works],
                         lambda actor, job: actor.step.remote(step, job.payload), done, lost, self.stop,
@@ -144,13 +156,6 @@ def dormant_engine(tools: list[Tool], options: RunOptions, opts: ClusterOptions,
     return Engine(s.tools, s.executor, None, options, s.fallback_model)
 
 
-def verified_tools() -> list[Tool]:
-    from ..store import ToolStore
-
-    with ToolStore() as store:
-        return list(store.tools(verified_only=True))
-
-
 def answer_on_workers(queue: str, out: Path | None, options: RunOptions, opts: ClusterOptions, *,
                       tools: list[Tool] | None = None, progress: Progress | None = None,
                       setup: MakeSetup | None = None) -> RunReport:
@@ -158,13 +163,16 @@ def answer_on_workers(queue: str, out: Path | None, options: RunOptions, opts: C
     import_ray()  # before anything else: without Ray nothing is read or written
     progress = progress or _Quiet()
     reader = open_queue(queue, out)
-    tools = verified_tools() if tools is None else tools
+    tools, notes = store_tools(options) if tools is None else (tools, [])
     with answers_file(out, progress) as (writer, resumed):
+        for note in notes:
+            progress.message(note)
         if not tools:
             progress.message("no verified tools in the tool store: every question goes to the fallback")
         args = (tools, options, opts.executor_name, opts.builder_name, opts.threads, opts.verbose, setup)
         with start_workers(AnswerWorker, args, opts, progress) as pool:
-            loop = ClusterLoop(pool, dormant_engine(tools, options, opts, setup), writer, resumed, progress,
-                               StopFlag(progress))
+            engine = dormant_engine(tools, options, opts, setup)
+            journal = RouteJournal(journal_path(out) if out is not None and options.group else None, engine.router_key)
+            loop = ClusterLoop(pool, engine, writer, resumed, progress, StopFlag(progress), journal)
             return run(loop, reader, follow=False, out=str(out) if out else "-",
                        load_cpu_seconds=pool.load_cpu_seconds, worker_cpu_seconds=pool.cpu_seconds)
