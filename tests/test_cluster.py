@@ -1,7 +1,9 @@
-"""Answering a queue on many workers (runner/cluster.py) with a local Ray instance of 2 CPUs: the same answers
-as the single-process run loop (real models), a worker killed mid-run loses and duplicates nothing, a driver
-killed with SIGKILL resumes on rerun, a worker without the model file names its node and the fetch command,
-and the run loop without Ray installed."""
+"""Many workers (runner/cluster/) on a local Ray instance of 2 CPUs: the same answers as the single-process run
+loop (real models), grouped by tool, resume by content through the workers, a worker killed mid-run loses and
+duplicates nothing, a task that kills every worker gets an error record, a driver killed with SIGKILL or
+stopped with Ctrl-C resumes on rerun with its journalled routes, a worker without the model file names its
+node and the fetch command, several families built at once, and the run loop without Ray installed. Control
+flow uses the scripted model double in the workers (tests/cluster_doubles.py)."""
 
 from __future__ import annotations
 
