@@ -37,6 +37,7 @@ def local_ray():
     """One local Ray instance for the module: 2 CPUs, no dashboard; workers see the project and this folder."""
     old = os.environ.get("PYTHONPATH")
     os.environ["PYTHONPATH"] = os.pathsep.join([str(ROOT), str(TESTS)] + ([old] if old else []))
+    os.environ.setdefault("RAY_worker_niceness", "0")  # as runner/cluster/pool.py starts Ray
     ray.init(address="local", num_cpus=2, include_dashboard=False, object_store_memory=100 * 1024 * 1024,
              logging_level="WARNING", log_to_driver=False)
     yield ray

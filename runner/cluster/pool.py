@@ -175,6 +175,9 @@ def _connect(ray: Any, opts: ClusterOptions) -> bool:
         if opts.address:
             ray.init(address=opts.address, **quiet)
         else:
+            # Ray starts its workers at niceness 15 unless told otherwise: on a machine shared with other work
+            # they then get almost no CPU (measured here: 2 workers no faster than 1). The workers are the job.
+            os.environ.setdefault("RAY_worker_niceness", "0")
             ray.init(address="local", num_cpus=opts.workers * opts.threads, include_dashboard=False,
                      object_store_memory=100 * 1024 * 1024, **quiet)
     except (ConnectionError, RuntimeError, ValueError) as exc:
