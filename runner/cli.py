@@ -382,8 +382,9 @@ def _build_here(family, settings_, builder_name: Optional[str], executor_name: O
     if report.verified:  # the router prompt now lists this tool: the first question after a build starts warm
         _warm_states(emodel)
     if report.contested and not as_json:  # put contested inputs to the person, and build again if answered
-        out.print(build_table(report))
-        out.print(build_verdict(report), highlight=False)
+        if ask:  # the first build's outcome, before its questions (the caller prints the last one)
+            out.print(build_table(report))
+            out.print(build_verdict(report), highlight=False)
         answered = _contested(report, family, Path(family.source), ask)
         if answered:
             out.print(f"{answered} answered case(s) added to {family.source}; building again", highlight=False)
