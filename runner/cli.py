@@ -400,12 +400,9 @@ def _build_here(family, settings_, builder_name: Optional[str], executor_name: O
 def _contested(report, family, family_file: Path, ask: bool) -> int:
     """Show the contested inputs of a build, write them beside the family file with empty answers, and with
     --ask put the phrased ones to the person; answered ones are appended to the family file. How many were."""
-    from .probe import Contest, ProbeReport, contested_lines, write_atomic
+    from .probe import add_examples, write_contested
 
-    found = ProbeReport(contested=[Contest.model_validate(c) for c in report.contested])
-    lines = contested_lines(found, family.name)
-    where = family_file.with_name(f"{family_file.stem}.contested.jsonl")
-    write_atomic(where, "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in lines))
+    where, lines = write_contested(report.contested, family.name, family_file)
     share = f"{report.agreement:.0%}" if report.agreement is not None else "n/a"
     err.print(f"[yellow]{len(lines)} contested input(s)[/yellow]: candidates that passed every example disagree "
               f"on them (the other candidates agree with this tool on {share} of probe inputs). Written with empty "
@@ -423,10 +420,7 @@ def _contested(report, family, family_file: Path, ask: bool) -> int:
         if reply:
             value: object = int(reply) if reply.lstrip("-").isdigit() else reply
             added.append({"id": line["id"], "question": line["question"], "answer": value})
-    if added:
-        old = family_file.read_text(encoding="utf-8")
-        sep = "" if not old or old.endswith("\n") else "\n"
-        write_atomic(family_file, old + sep + "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in added))
+    add_examples(family_file, added)
     return len(added)
 
 
@@ -920,9 +914,9 @@ def suggest_cmd(answers: Path = typer.Argument(..., help="An answers file writte
 def eval_tables(report) -> list:
     """The eval for the terminal: accuracy and cost by family and method, then the split's break-even. The
     p95 CPU, tokens per task and model names are in eval.md and eval.json, which have room for them."""
-    from . import evaluate
+    from . import evaluate, evalreport
 
-    fmt = evaluate._fmt_cpu
+    fmt = evalreport.fmt_cpu
     t = screen_table(f"Eval: {report.n} tasks per family (seed {report.seed})")
     t.add_column("family / method", no_wrap=True)
     for c in ("accuracy", "95% CI", "CPU s/task", "CPU s/right"):
@@ -960,10 +954,10 @@ def eval_tables(report) -> list:
                 cells.append("" if v is None else f"{v} tasks" if isinstance(v, int) else str(v))
             b.add_row(r.family, fmt(r.build_cpu), *cells)
         tables.append(b)
-    steps = evaluate.step_rows(report)
+    steps = evalreport.step_rows(report)
     if steps:
         st = screen_table("The split's CPU s per task by step (no routing: tasks go straight to their tool)")
-        for c in evaluate.STEP_COLUMNS:
+        for c in evalreport.STEP_COLUMNS:
             st.add_column(c, justify="left" if c == "family" else "right", no_wrap=c == "family")
         for row in steps:
             st.add_row(*row)

@@ -16,6 +16,7 @@ from typing import Any, BinaryIO, Callable, Iterator
 from pydantic import BaseModel
 
 from . import settings
+from .atomicfile import write_text
 from .errors import (
     ConfigError,
     FetchError,
@@ -84,9 +85,7 @@ def _write_stamp(path: Path, sha: str) -> None:
     stamps[str(path)] = {"size": st.st_size, "mtime_ns": st.st_mtime_ns, "sha256": sha}
     target = _stamp_file()
     target.parent.mkdir(parents=True, exist_ok=True)
-    tmp = target.with_suffix(".tmp")
-    tmp.write_text(json.dumps(stamps, indent=1))
-    os.replace(tmp, target)
+    write_text(target, json.dumps(stamps, indent=1))
 
 
 def check_file(spec: ModelSpec, *, rehash: bool, progress: Progress | None = None) -> Path:
@@ -231,9 +230,7 @@ def add_local(path: Path, name: str, roles: list[str], registry: Registry,
              f'quantization = {json.dumps(spec.quantization)}\nfile = {json.dumps(spec.file)}\n'
              f'size = {spec.size}\nsha256 = "{spec.sha256}"\n\n[models.{json.dumps(name)}.source]\n'
              f'kind = "local"\npath = {json.dumps(str(path))}\n')
-    tmp = local.with_suffix(".tmp")
-    tmp.write_text(old + block, encoding="utf-8")
-    os.replace(tmp, local)
+    write_text(local, old + block)
     _write_stamp(path, spec.sha256)
     return spec
 

@@ -16,9 +16,12 @@ import json
 import random
 import re
 import time
+from pathlib import Path
 from typing import Any, Callable, Iterator
 
 from pydantic import BaseModel, Field
+
+from .atomicfile import write_text
 
 PROBE_SECONDS = 60.0  # wall-clock cap on running candidates over the probe inputs
 MAX_INPUTS = 48
@@ -283,20 +286,25 @@ def contested_lines(report: ProbeReport, family: str) -> list[dict[str, Any]]:
     return lines
 
 
-def write_atomic(path: "Path", text: str) -> None:
-    """Write `text` to `path` whole or not at all (a temporary file in the same folder, then a rename)."""
-    import os
-    import tempfile
-    from pathlib import Path
+def contested_file(family_file: Path) -> Path:
+    """Where a family's contested inputs are written: beside the family file, `<stem>.contested.jsonl`."""
+    return family_file.with_name(f"{family_file.stem}.contested.jsonl")
 
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+
+def write_contested(contested: list[dict], family_name: str, family_file: Path) -> tuple[Path, list[dict]]:
+    """Write a build report's contested inputs, with empty answers, beside the family file (whole or not at
+    all). Returns the file and its lines."""
+    found = ProbeReport(contested=[Contest.model_validate(c) for c in contested])
+    lines = contested_lines(found, family_name)
+    where = contested_file(family_file)
+    write_text(where, "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in lines))
+    return where, lines
+
+
+def add_examples(family_file: Path, added: list[dict]) -> None:
+    """Append answered cases to a family file as examples (the file is rewritten whole or not at all)."""
+    if not added:
+        return
+    old = family_file.read_text(encoding="utf-8")
+    sep = "" if not old or old.endswith("\n") else "\n"
+    write_text(family_file, old + sep + "".join(json.dumps(x, ensure_ascii=False) + "\n" for x in added))

@@ -14,7 +14,6 @@ from __future__ import annotations
 import hashlib
 import os
 import struct
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -23,6 +22,7 @@ from typing import Any, Iterator, Sequence
 from pydantic import BaseModel, ValidationError
 
 from . import prompts, settings
+from .atomicfile import replace_with
 
 FORMAT = 1
 MAGIC = b"JWWARM\x00\x01"  # this file format's own mark; the version is its last byte
@@ -147,15 +147,12 @@ class Shelf:
         p = self.path(key)
         try:
             self.root.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=self.root, prefix=".partial-", suffix=SUFFIX)
-            try:
-                with os.fdopen(fd, "wb") as fh:
+            def write(tmp: Path) -> None:  # two writes: the KV bytes can be large, so they are not copied
+                with open(tmp, "wb") as fh:
                     fh.write(MAGIC + struct.pack("<I", len(raw)) + raw)
                     fh.write(kv)
-                os.replace(tmp, p)
-            except BaseException:
-                self.discard(Path(tmp))
-                raise
+
+            replace_with(p, write, prefix=".partial-", suffix=SUFFIX)
         except OSError:
             return None
         self.evict(keep=p)
