@@ -220,6 +220,8 @@ class BuildInfo(BaseModel):
     cpu_seconds: float = 0.0
     cache_hit: bool = False
     failures: list[str] = Field(default_factory=list)
+    contested: int = 0  # inputs on which the candidates that passed every example disagree, still unanswered
+    agreement: float | None = None  # share of probe inputs on which they agree with this tool
 
 
 class MethodRow(BaseModel):
@@ -515,7 +517,8 @@ class Evaluator:
                          tool_sha=tool_sha(tool) if tool else None, verified=bool(tool and report.verified),
                          held_out_score=report.held_out_score, strategy=report.strategy,
                          cpu_seconds=round(report.total_cpu, 3), cache_hit=report.cache_hit,
-                         failures=report.failures[-5:])
+                         failures=report.failures[-5:], contested=len(report.contested or []),
+                         agreement=report.agreement)
         if tool is None:
             self.cache.note_failed_build(info)
         return tool, info
@@ -609,6 +612,11 @@ def split_note(info: BuildInfo) -> tuple[str, bool]:
         return "NO TOOL: the build produced none, every task counts as failed", True
     if not info.verified:
         return f"UNVERIFIED tool (held-out score {info.held_out_score:.2f})", True
+    if info.contested:
+        share = f"; the other passing candidates agree on {info.agreement:.0%} of probe inputs" \
+            if info.agreement is not None else ""
+        return (f"verified tool, {info.contested} contested input(s) open (answer them: "
+                f"`jigwright build --ask`){share}"), False
     return "verified tool", False
 
 

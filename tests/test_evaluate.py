@@ -362,3 +362,14 @@ def test_cli_reports_a_bad_family_dir_in_one_line(tmp_path):
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and f"{fam / 'test.jsonl'}:2: not valid JSON" in lines[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_split_note_names_open_contested_inputs():
+    plain = E.BuildInfo(family="fees", key="k", tool="fees", verified=True)
+    assert E.split_note(plain) == ("verified tool", False)
+    open_cases = plain.model_copy(update={"contested": 3, "agreement": 0.875})
+    note, flagged = E.split_note(open_cases)
+    assert not flagged
+    assert "3 contested input(s) open" in note and "88%" in note and "--ask" in note
+    unverified = open_cases.model_copy(update={"verified": False, "held_out_score": 2 / 3})
+    assert E.split_note(unverified)[1]  # an unverified tool is flagged whatever its probe found
