@@ -28,7 +28,8 @@ from pydantic import BaseModel, Field, computed_field
 from . import build as build_mod
 from . import answerform, prompts, settings
 from .errors import InputError
-from .execute import REL_TOL, EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, fill_start
+from .execute import (REL_TOL, EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, fill_start,
+                      forget_fill_misses)
 from .fingerprint import code_fingerprint
 from .llm import ChatModel, Message
 from .meter import physical_cores
@@ -476,6 +477,29 @@ def _build_settings() -> build_mod.BuildSettings:
     return build_mod.BuildSettings()
 
 
+def known_no_build(family: str, key: str, store: ToolStore, cache: ResultCache, progress: Progress) -> BuildInfo | None:
+    """When the tool store has no tool for this build: the eval's note of a build that gave none (so a rerun
+    does not pay for it again), else None after saying that the build is about to run."""
+    if store.by_key(key) is not None:
+        return None
+    failed = cache.failed_build(key)
+    if failed is not None:
+        return failed.model_copy(update={"cache_hit": True})
+    if store.failed(key) is None:  # else the build returns the remembered failure at once
+        progress.message(f"{family}: no tool in the tool store for this build yet; building it "
+                         f"(the builder's cost is counted as the split's build cost)")
+    return None
+
+
+def build_info(family: str, tool: Tool | None, report: build_mod.BuildReport) -> BuildInfo:
+    """What the eval keeps of a build's outcome."""
+    return BuildInfo(family=family, key=report.key, tool=tool.name if tool else None,
+                     tool_sha=tool_sha(tool) if tool else None, verified=bool(tool and report.verified),
+                     held_out_score=report.held_out_score, strategy=report.strategy,
+                     cpu_seconds=round(report.total_cpu, 3), cache_hit=report.cache_hit,
+                     failures=report.failures[-5:], contested=len(report.contested or []), agreement=report.agreement)
+
+
 class Evaluator:
     def __init__(self, setup: EvalSetup, cache: ResultCache, *, sandbox: Any = None, store: ToolStore | None = None,
                  progress: Progress | None = None, options: RunOptions | None = None):
@@ -494,14 +518,10 @@ class Evaluator:
         no tool at all is noted in the eval cache so a rerun does not pay for it again."""
         assert self.store is not None
         s = _build_settings()
-        key = build_mod.build_key(fam.family, self.setup.builder_sha, self.setup.executor_sha, s)
-        if self.store.by_key(key) is None:
-            failed = self.cache.failed_build(key)
-            if failed is not None:
-                return None, failed.model_copy(update={"cache_hit": True})
-            if self.store.failed(key) is None:  # else the build below returns the remembered failure at once
-                self.progress.message(f"{fam.name}: no tool in the tool store for this build yet; building it "
-                                      f"(the builder's cost is counted as the split's build cost)")
+        key = self.build_key(fam)
+        known = known_no_build(fam.name, key, self.store, self.cache, self.progress)
+        if known is not None:
+            return None, known
         steps_seen: list[str] = []
 
         def on_step(step: str, note: str) -> None:
@@ -513,12 +533,7 @@ class Evaluator:
                                        sandbox=self.sandbox, store=self.store, settings=s,
                                        builder_sha=self.setup.builder_sha, executor_sha=self.setup.executor_sha,
                                        progress=on_step)
-        info = BuildInfo(family=fam.name, key=report.key, tool=tool.name if tool else None,
-                         tool_sha=tool_sha(tool) if tool else None, verified=bool(tool and report.verified),
-                         held_out_score=report.held_out_score, strategy=report.strategy,
-                         cpu_seconds=round(report.total_cpu, 3), cache_hit=report.cache_hit,
-                         failures=report.failures[-5:], contested=len(report.contested or []),
-                         agreement=report.agreement)
+        info = build_info(fam.name, tool, report)
         if tool is None:
             self.cache.note_failed_build(info)
         return tool, info
@@ -534,40 +549,61 @@ class Evaluator:
         self.computed += 1
         return result, True
 
+    def build_key(self, fam: FamilyDir) -> str:
+        """The key of the build `jigwright build` would do for this family (its default settings)."""
+        return build_mod.build_key(fam.family, self.setup.builder_sha, self.setup.executor_sha, _build_settings())
+
+    def split_key(self, family: str, tool: Tool, task: EvalTask, start: str | None = None) -> str:
+        """The result key of one split task; `start` is how the fill starts ("free", or "schema" after an
+        earlier miss of this tool), by default as this process would start it now."""
+        template = prompts.template_hash(EXECUTOR_TEMPLATE)[EXECUTOR_TEMPLATE]
+        return result_key("split", self.setup.executor_sha, family, task, template, tool_sha(tool),
+                          {"seed": MODEL_SEED, "retries": self.options.retries,
+                           "retry_temperature": self.options.retry_temperature, "fill": FILL_METHOD,
+                           "fill_start": start or fill_start(tool.card)})
+
+    def direct_key(self, fam: FamilyDir, method: str, task: EvalTask) -> str:
+        spec = DIRECT[method]
+        sha = self.setup.builder_sha if spec.role == "builder" else self.setup.executor_sha
+        template = prompts.template_hash(spec.template)[spec.template]
+        context = _sha({"description": _description(fam.family),
+                        "examples": [[e.question, e.answer] for e in fam.family.examples]})[:32]
+        return result_key(method, sha, fam.name, task, template, context,
+                          {"seed": MODEL_SEED, "max_tokens": spec.max_tokens, "answer_rules": answerform.RULES_VERSION})
+
     def run_split(self, fam: FamilyDir, tasks: list[EvalTask]) -> tuple[list[TaskResult], int, BuildInfo, Tool | None]:
         tool, info = self.split_tool(fam)
+        results, computed = self.run_split_tasks(fam, tool, tasks)
+        return results, computed, info, tool
+
+    def run_split_tasks(self, fam: FamilyDir, tool: Tool | None, tasks: list[EvalTask]) -> tuple[list[TaskResult], int]:
+        """The split's tasks in order with `tool`. Its fills start free, as in a fresh process, so a family's
+        results do not hang on the families or builds done before it in this process (nor on which worker
+        runs it); a miss within the family sends its later fills to the schema, and the keys say so."""
         self.progress.phase(f"{fam.name} · split", len(tasks))
+        if tool is not None:
+            forget_fill_misses(tool.card)
         results, computed = [], 0
-        template = prompts.template_hash(EXECUTOR_TEMPLATE)[EXECUTOR_TEMPLATE]
         for task in tasks:
             if tool is None:
                 results.append(TaskResult(id=task.id, answered=False, error="no tool: the build produced none"))
             else:
                 # the fill's start ("free" or "schema" after an earlier miss in this process) changes the result
-                key = result_key("split", self.setup.executor_sha, fam.name, task, template, tool_sha(tool),
-                                 {"seed": MODEL_SEED, "retries": self.options.retries,
-                                  "retry_temperature": self.options.retry_temperature, "fill": FILL_METHOD,
-                                  "fill_start": fill_start(tool.card)})
-                r, new = self._cached_or_run(key, lambda: answer_split(self.setup.executor, tool, task,
-                                                                       self.sandbox, self.options))
+                r, new = self._cached_or_run(self.split_key(fam.name, tool, task),
+                                             lambda: answer_split(self.setup.executor, tool, task, self.sandbox,
+                                                                  self.options))
                 results.append(r)
                 computed += new
             self.progress.advance()
-        return results, computed, info, tool
+        return results, computed
 
     def run_direct(self, fam: FamilyDir, method: str, tasks: list[EvalTask]) -> tuple[list[TaskResult], int]:
         spec = DIRECT[method]
         model = self.setup.builder if spec.role == "builder" else self.setup.executor
-        sha = self.setup.builder_sha if spec.role == "builder" else self.setup.executor_sha
-        template = prompts.template_hash(spec.template)[spec.template]
-        context = _sha({"description": _description(fam.family),
-                        "examples": [[e.question, e.answer] for e in fam.family.examples]})[:32]
         self.progress.phase(f"{fam.name} · {method}", len(tasks))
         results, computed = [], 0
         for task in tasks:
-            key = result_key(method, sha, fam.name, task, template, context,
-                             {"seed": MODEL_SEED, "max_tokens": spec.max_tokens,
-                              "answer_rules": answerform.RULES_VERSION})
+            key = self.direct_key(fam, method, task)
             r, new = self._cached_or_run(key, lambda: answer_direct(model, spec, fam.family, task))
             results.append(r)
             computed += new
@@ -660,6 +696,36 @@ def pooled_rows(rows: list[MethodRow], methods: list[str], builds: list[BuildInf
     return out, note
 
 
+def method_row(fam: FamilyDir, method: str, model: str, tasks: list[EvalTask], results: list[TaskResult],
+               computed: int, info: BuildInfo | None = None) -> MethodRow:
+    """One method's row for one family: scored results, and the split's build cost and note."""
+    row = make_row(fam.name, method, model, score(tasks, results, fam.family.rel_tol), computed)
+    if method == "split":
+        assert info is not None
+        row.build_cpu = info.cpu_seconds
+        row.note, row.flagged = split_note(info)
+    elif row.unanswered:
+        row.note = f"{row.unanswered} without an answer"
+    return row
+
+
+def finish_report(families: list[FamilyDir], setup: EvalSetup, rows: list[MethodRow], builds: list[BuildInfo], *,
+                  methods: list[str], n: int, seed: int, computed: int, reused: int, load_cpu: float,
+                  cache_dir: Path) -> EvalReport:
+    """The pooled rows, the break-even points and the report around the family rows."""
+    pooled_note = ""
+    if len(families) > 1:
+        pooled, pooled_note = pooled_rows(rows, methods, builds)
+        rows.extend(pooled)
+    add_break_even(rows)
+    return EvalReport(
+        created=datetime.now(timezone.utc).isoformat(timespec="seconds"), machine=machine(), n=n, seed=seed,
+        methods=methods, models={"builder": getattr(setup.builder, "name", "builder"),
+                                 "executor": getattr(setup.executor, "name", "executor")},
+        families=[f.name for f in families], builds=builds, rows=rows, computed=computed, reused=reused,
+        model_load_cpu_seconds=round(load_cpu, 3), cache=str(cache_dir), pooled_note=pooled_note)
+
+
 def evaluate(families: list[FamilyDir], setup: EvalSetup, *, methods: list[str], n: int = 20, seed: int = 0,
              out_dir: Path = Path("eval-out"), cache_dir: Path | None = None, sandbox: Any = None,
              store: ToolStore | None = None, progress: Progress | None = None) -> EvalReport:
@@ -682,33 +748,16 @@ def evaluate(families: list[FamilyDir], setup: EvalSetup, *, methods: list[str],
         for fam in families:
             tasks = select_tasks(fam.tasks, n, seed)
             for method in methods:
+                info = None
                 if method == "split":
                     results, computed, info, _ = ev.run_split(fam, tasks)
                     builds.append(info)
-                    row = make_row(fam.name, method, ev.model_name(method),
-                                   score(tasks, results, fam.family.rel_tol), computed)
-                    row.build_cpu = info.cpu_seconds
-                    row.note, row.flagged = split_note(info)
                 else:
                     results, computed = ev.run_direct(fam, method, tasks)
-                    row = make_row(fam.name, method, ev.model_name(method),
-                                   score(tasks, results, fam.family.rel_tol), computed)
-                    if row.unanswered:
-                        row.note = f"{row.unanswered} without an answer"
-                rows.append(row)
-        pooled_note = ""
-        if len(families) > 1:
-            pooled, pooled_note = pooled_rows(rows, methods, builds)
-            rows.extend(pooled)
-        add_break_even(rows)
-        report = EvalReport(
-            created=datetime.now(timezone.utc).isoformat(timespec="seconds"), machine=machine(), n=n, seed=seed,
-            methods=methods, models={"builder": getattr(setup.builder, "name", "builder"),
-                                     "executor": getattr(setup.executor, "name", "executor")},
-            families=[f.name for f in families], builds=builds, rows=rows, computed=ev.computed, reused=ev.reused,
-            model_load_cpu_seconds=round(sum(m.load_usage.cpu_seconds for m in setup.opened
-                                             if getattr(m, "load_usage", None) is not None), 3),
-            cache=str(cache_dir), pooled_note=pooled_note)
+                rows.append(method_row(fam, method, ev.model_name(method), tasks, results, computed, info))
+        load_cpu = sum(m.load_usage.cpu_seconds for m in setup.opened if getattr(m, "load_usage", None) is not None)
+        report = finish_report(families, setup, rows, builds, methods=methods, n=n, seed=seed, computed=ev.computed,
+                               reused=ev.reused, load_cpu=load_cpu, cache_dir=cache_dir)
     from .evalreport import write_outputs
 
     write_outputs(report, out_dir)

@@ -78,9 +78,13 @@ FILL_METHOD = "forced spans when greedy; else free-then-schema, schema after a m
 _FREE_MISSED: set[str] = set()  # schemas whose free fill has missed once in this process
 
 
-def forget_fill_misses() -> None:
-    """Start again with free fills for every tool (tests; a long-lived process after tools change)."""
-    _FREE_MISSED.clear()
+def forget_fill_misses(card: Card | None = None) -> None:
+    """Start again with free fills for every tool (tests; a long-lived process after tools change), or for
+    the one card given (the eval, at the start of a family's split)."""
+    if card is None:
+        _FREE_MISSED.clear()
+    else:
+        _FREE_MISSED.discard(json.dumps(card.schema_, sort_keys=True))
 
 
 def fill_start(card: Card) -> str:
