@@ -849,22 +849,42 @@ def eval_cmd(family_dirs: List[Path] = typer.Argument(..., help="Family folders,
              out_dir: Path = typer.Option(Path("eval-out"), "--out", "-o", help="Folder for eval.json, eval.md, eval.png, eval.svg."),
              builder_name: Optional[str] = typer.Option(None, "--builder", help="Builder model name."),
              executor_name: Optional[str] = typer.Option(None, "--executor", help="Executor model name."),
+             workers: int = typer.Option(0, "--workers", min=0, help="Evaluate on N workers (needs Ray: the 'cluster' extra); 0: in this process."),
+             cluster: Optional[str] = typer.Option(None, "--cluster", help="Join the Ray cluster at this address instead of starting Ray here (with --workers)."),
+             threads: int = typer.Option(1, "--threads", min=1, help="llama.cpp threads per worker (with --workers)."),
              as_json: bool = typer.Option(False, "--json", help="The eval report as JSON on stdout.")) -> None:
     """Compare the split with direct answers. On held-out tasks, a built tool with the executor is measured
     against the models answering directly.
 
     Each task result is cached under JIGWRIGHT_HOME/eval as soon as it is known: an interrupted eval loses
     nothing, and a rerun computes only the missing tasks. A missing tool is built as `jigwright build` would.
+
+    With --workers N the builds and tasks are done by N workers (each loads its own models; every node needs
+    the model files and the same Jigwright version); this process keeps the cache and the tool store and
+    writes the outputs, and the results are those of an eval in one process. A result is cached when its
+    job (a family's split, or up to five tasks of a direct method) comes back.
     """
     from . import evaluate
+    from .errors import InputError
 
+    if cluster is not None and workers == 0:
+        raise InputError("--cluster needs --workers N: how many workers to start on the cluster")
     chosen = evaluate.parse_methods(methods)
     families = evaluate.load_families(family_dirs)
     if "split" in chosen:
         caution()
-    setup = evaluate.local_setup(builder_name, executor_name, verbose=STATE["verbose"])
     with _RunProgress(quiet=STATE["verbose"]) as progress:
-        report = evaluate.evaluate(families, setup, methods=chosen, n=n, seed=seed, out_dir=out_dir, progress=progress)
+        if workers:
+            from .cluster import ClusterOptions, eval_on_workers
+
+            copts = ClusterOptions(workers=workers, address=cluster, threads=threads, executor_name=executor_name,
+                                   builder_name=builder_name, verbose=STATE["verbose"])
+            report = eval_on_workers(families, copts, methods=chosen, n=n, seed=seed, out_dir=out_dir,
+                                     progress=progress)
+        else:
+            setup = evaluate.local_setup(builder_name, executor_name, verbose=STATE["verbose"])
+            report = evaluate.evaluate(families, setup, methods=chosen, n=n, seed=seed, out_dir=out_dir,
+                                       progress=progress)
     if as_json:
         out.print_json(report.model_dump_json())
         return

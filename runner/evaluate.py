@@ -28,8 +28,8 @@ from pydantic import BaseModel, Field, computed_field
 from . import build as build_mod
 from . import answerform, prompts, settings
 from .errors import InputError
-from .execute import (REL_TOL, EXECUTOR_TEMPLATE, FILL_METHOD, answer_with_tool, answers_match, fill_start,
-                      forget_fill_misses)
+from .execute import (REL_TOL, EXECUTOR_TEMPLATE, FILL_METHOD, FREE_THEN_SCHEMA, answer_with_tool, answers_match,
+                      fill_start, forget_fill_misses, replay_fill_modes)
 from .fingerprint import code_fingerprint
 from .llm import ChatModel, Message
 from .meter import physical_cores
@@ -579,7 +579,8 @@ class Evaluator:
     def run_split_tasks(self, fam: FamilyDir, tool: Tool | None, tasks: list[EvalTask]) -> tuple[list[TaskResult], int]:
         """The split's tasks in order with `tool`. Its fills start free, as in a fresh process, so a family's
         results do not hang on the families or builds done before it in this process (nor on which worker
-        runs it); a miss within the family sends its later fills to the schema, and the keys say so."""
+        runs it); a miss within the family sends its later fills to the schema, and the keys say so (a
+        rerun walks the same keys, so it reuses every result it has)."""
         self.progress.phase(f"{fam.name} · split", len(tasks))
         if tool is not None:
             forget_fill_misses(tool.card)
@@ -592,6 +593,8 @@ class Evaluator:
                 r, new = self._cached_or_run(self.split_key(fam.name, tool, task),
                                              lambda: answer_split(self.setup.executor, tool, task, self.sandbox,
                                                                   self.options))
+                if not new:  # a reused result's miss counts as if its fill ran now: later keys are as first computed
+                    replay_fill_modes(tool.card, r.fill)
                 results.append(r)
                 computed += new
             self.progress.advance()

@@ -76,6 +76,7 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 # difference); manifest_order's free replies fit the schema in 4 of 8 (labels left unquoted).
 FILL_METHOD = "forced spans when greedy; else free-then-schema, schema after a miss"
 _FREE_MISSED: set[str] = set()  # schemas whose free fill has missed once in this process
+FREE_THEN_SCHEMA = "free, then schema"  # the mode of a fill whose free reply missed
 
 
 def forget_fill_misses(card: Card | None = None) -> None:
@@ -85,6 +86,13 @@ def forget_fill_misses(card: Card | None = None) -> None:
         _FREE_MISSED.clear()
     else:
         _FREE_MISSED.discard(json.dumps(card.schema_, sort_keys=True))
+
+
+def replay_fill_modes(card: Card, modes: list[str]) -> None:
+    """Take in a miss that an earlier result records (a fill asked free, then under the schema) as if that
+    fill had just run here: the eval reuses such results and the later fills must start as they did."""
+    if FREE_THEN_SCHEMA in modes:
+        _FREE_MISSED.add(json.dumps(card.schema_, sort_keys=True))
 
 
 def fill_start(card: Card) -> str:
@@ -127,7 +135,7 @@ def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, te
             return Filled(arguments=args, usage=reply.usage, raw=reply.text, mode="free")
         _FREE_MISSED.add(schema_key)
         usage = reply.usage
-        mode = "free, then schema"
+        mode = FREE_THEN_SCHEMA
     else:
         mode = "schema"
     reply = model.chat(messages, seed=seed, temperature=temperature, max_tokens=token_budget(card),
@@ -284,7 +292,8 @@ def answer_directly(model: ChatModel, question: str, *, seed: int, max_tokens: i
     return DirectAnswer(answer=answerform.direct_answer(question, reply.text), text=reply.text, usage=reply.usage)
 
 
-__all__ = ["Filled", "fill_messages", "fill_prefix", "fill_arguments", "fill_start", "forget_fill_misses", "schema_problem", "normalise",
+__all__ = ["Filled", "fill_messages", "fill_prefix", "fill_arguments", "fill_start", "forget_fill_misses",
+           "replay_fill_modes", "FREE_THEN_SCHEMA", "schema_problem", "normalise",
            "answers_match", "as_number", "REL_TOL", "DIRECT_MAX_TOKENS",
            "extract_answer", "token_budget", "Tool", "ToolAnswer", "answer_with_tool", "DirectAnswer",
            "direct_messages", "answer_directly"]

@@ -59,3 +59,22 @@ def _fresh_fill_policy():
 
     forget_fill_misses()
     yield
+
+
+@pytest.fixture(scope="module")
+def local_ray():
+    """One local Ray instance per test module (the cluster tests): 2 CPUs, no dashboard; workers see the
+    project and the tests folder."""
+    ray = pytest.importorskip("ray", reason="the cluster extra is not installed: pip install 'jigwright[cluster]'")
+    tests = Path(__file__).resolve().parent
+    old = os.environ.get("PYTHONPATH")
+    os.environ["PYTHONPATH"] = os.pathsep.join([str(ROOT), str(tests)] + ([old] if old else []))
+    os.environ.setdefault("RAY_worker_niceness", "0")  # as runner/cluster/pool.py starts Ray
+    ray.init(address="local", num_cpus=2, include_dashboard=False, object_store_memory=100 * 1024 * 1024,
+             logging_level="WARNING", log_to_driver=False)
+    yield ray
+    ray.shutdown()
+    if old is None:
+        os.environ.pop("PYTHONPATH", None)
+    else:
+        os.environ["PYTHONPATH"] = old

@@ -32,22 +32,6 @@ from cluster_doubles import scripted_setup  # noqa: E402
 TESTS = Path(__file__).resolve().parent
 
 
-@pytest.fixture(scope="module")
-def local_ray():
-    """One local Ray instance for the module: 2 CPUs, no dashboard; workers see the project and this folder."""
-    old = os.environ.get("PYTHONPATH")
-    os.environ["PYTHONPATH"] = os.pathsep.join([str(ROOT), str(TESTS)] + ([old] if old else []))
-    os.environ.setdefault("RAY_worker_niceness", "0")  # as runner/cluster/pool.py starts Ray
-    ray.init(address="local", num_cpus=2, include_dashboard=False, object_store_memory=100 * 1024 * 1024,
-             logging_level="WARNING", log_to_driver=False)
-    yield ray
-    ray.shutdown()
-    if old is None:
-        os.environ.pop("PYTHONPATH", None)
-    else:
-        os.environ["PYTHONPATH"] = old
-
-
 def two_workers(**kw) -> ClusterOptions:
     return ClusterOptions(workers=2, **kw)
 

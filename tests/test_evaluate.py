@@ -275,6 +275,24 @@ def test_resume_after_interruption_computes_only_missing_tasks(tmp_path, sandbox
     assert idle.calls == [] and (third.computed, third.reused) == (0, 12)
 
 
+def test_a_rerun_after_a_fill_miss_reuses_every_split_result(tmp_path, sandbox):
+    """t6's free fill misses, so the fills after it start under the schema and are cached under keys that say
+    so; a rerun walks the same keys (the reused miss counts as if it ran) and computes nothing."""
+    fam = make_family(tmp_path / "fams")
+    with ToolStore(tmp_path / "store") as store:
+        put_tool(store, fam)
+        first = run_eval(tmp_path, [fam], setup_of(ScriptedModel("executor", executor_script(bad_fill={"t6"})),
+                                                   ScriptedModel("builder", [])), sandbox, store, ["split"])
+        idle = ScriptedModel("executor", [])
+        again = run_eval(tmp_path, [fam], setup_of(idle, ScriptedModel("builder", [])), sandbox, store, ["split"],
+                         out="again")
+    fills = [s.fill for s in row(first, "split").results]
+    t6 = [s.id for s in row(first, "split").results].index("t6")
+    assert fills[t6][0] == "free, then schema" and t6 < 5 and fills[t6 + 1] == ["schema"]
+    assert (first.computed, again.computed, again.reused) == (6, 0, 6) and idle.calls == []
+    assert [s.model_dump() for s in row(again, "split").results] == [s.model_dump() for s in row(first, "split").results]
+
+
 def test_unverified_tool_still_answers_and_is_flagged(tmp_path, sandbox):
     fam = make_family(tmp_path / "fams")
     executor = ScriptedModel("executor", executor_script())

@@ -14,7 +14,7 @@ from ..build import BuildReport, BuildSettings, Family, build, build_key
 from ..llm import ChatModel
 from ..runloop import Progress, _Quiet
 from ..tools import Tool
-from .pool import ClusterOptions, Job, WorkerBase, check_model_files, farm, import_ray, start_workers
+from .pool import ClusterOptions, Job, WorkerBase, WorkerPool, check_model_files, farm, import_ray, start_workers
 
 MakeModels = Callable[[], tuple[ChatModel, ChatModel]]
 
@@ -31,6 +31,7 @@ class BuildWorker(WorkerBase):
         self.verbose = verbose
         self.make_models = models
         self.models: tuple[ChatModel, ChatModel] | None = None
+        self.roles: tuple[str, ...] = ("builder", "executor")  # whose model files are checked at the start
 
     def prepare(self) -> None:
         from ..runloop import local_model
@@ -39,7 +40,7 @@ class BuildWorker(WorkerBase):
         if self.make_models is not None:
             self.models = self.make_models()
         else:
-            check_model_files([("builder", builder_name), ("executor", executor_name)])
+            check_model_files([(role, builder_name if role == "builder" else executor_name) for role in self.roles])
             self.models = (local_model("builder", builder_name, self.threads, self.verbose),
                            local_model("executor", executor_name, self.threads, self.verbose))
         self.opened = list(self.models)
@@ -71,6 +72,47 @@ def model_shas(opts: ClusterOptions) -> tuple[str, str]:
             models.for_role(registry, "executor", opts.executor_name).sha256)
 
 
+def build_jobs(store: Any, families: list[Family], settings: BuildSettings, shas: tuple[str, str]) -> list[Job]:
+    """One job per family, each with what the driver's tool store holds for that build (the seed)."""
+    jobs = []
+    for n, family in enumerate(families):
+        key = build_key(family, shas[0], shas[1], settings)
+        seed = {"key": key, "failed": store.failed(key),
+                "tools": [t for t in (store.get(family.name, missing_ok=True), store.by_key(key)) if t]}
+        jobs.append(Job((n, family, key, seed), f"build-{n}"))
+    return jobs
+
+
+def run_builds(pool: WorkerPool, store: Any, families: list[Family], settings: BuildSettings,
+               shas: tuple[str, str], force: bool, progress: Progress,
+               arrived: Callable[[Family, Tool | None, BuildReport], None] | None = None
+               ) -> tuple[dict[int, tuple[Tool | None, BuildReport]], list[str]]:
+    """Build each family on the pool's workers (BuildWorker or a subclass); each new outcome goes into the
+    driver's `store` as it arrives (then `arrived` is told). Returns the outcomes by family index and the
+    builds given up (a build that killed two workers)."""
+    results: dict[int, tuple[Tool | None, BuildReport]] = {}
+    lost: list[str] = []
+
+    def done(job: Job, result: tuple[Tool | None, BuildReport]) -> None:
+        n, family, key, _ = job.payload
+        tool, report = result
+        if not report.cache_hit:
+            if tool is not None:
+                store.put(tool)
+            else:
+                store.put_failed(key, report.model_dump_json())
+        results[n] = result
+        if arrived is not None:
+            arrived(family, tool, report)
+        progress.advance()
+
+    progress.phase("building", len(families))
+    farm(pool, build_jobs(store, families, settings, shas),
+         lambda actor, job: actor.build.remote(job.payload[1], settings, shas, job.payload[3], force),
+         done, lambda job, why: lost.append(f"{job.payload[1].name}: {why}"), lambda: False, progress)
+    return results, lost
+
+
 def build_on_workers(families: list[Family], settings: BuildSettings, opts: ClusterOptions, *, force: bool = False,
                      progress: Progress | None = None, models: MakeModels | None = None,
                      shas: tuple[str, str] | None = None) -> list[tuple[Family, Tool | None, BuildReport]]:
@@ -82,34 +124,10 @@ def build_on_workers(families: list[Family], settings: BuildSettings, opts: Clus
     import_ray()
     progress = progress or _Quiet()
     shas = shas or model_shas(opts)
-    results: dict[int, tuple[Tool | None, BuildReport]] = {}
     with ToolStore() as store:
-        jobs = []
-        for n, family in enumerate(families):
-            key = build_key(family, shas[0], shas[1], settings)
-            seed = {"key": key, "failed": store.failed(key),
-                    "tools": [t for t in (store.get(family.name, missing_ok=True), store.by_key(key)) if t]}
-            jobs.append(Job((n, family, key, seed), f"family-{n}"))
         args = (opts.builder_name, opts.executor_name, opts.threads, opts.verbose, models)
         with start_workers(BuildWorker, args, opts, progress) as pool:
-            progress.phase("building", len(jobs))
-
-            def done(job: Job, result: tuple[Tool | None, BuildReport]) -> None:
-                n, family, key, _ = job.payload
-                tool, report = result
-                if not report.cache_hit:
-                    if tool is not None:
-                        store.put(tool)
-                    else:
-                        store.put_failed(key, report.model_dump_json())
-                results[n] = result
-                progress.advance()
-
-            lost: list[str] = []
-            finished = farm(pool, jobs,
-                            lambda actor, job: actor.build.remote(job.payload[1], settings, shas, job.payload[3], force),
-                            done, lambda job, why: lost.append(f"{job.payload[1].name}: {why}"),
-                            lambda: False, progress)
-    if lost or not finished:
+            results, lost = run_builds(pool, store, families, settings, shas, force, progress)
+    if lost:
         raise ClusterError("builds given up: " + "; ".join(lost) + " (the other outcomes are kept in the tool store)")
     return [(family, *results[n]) for n, family in enumerate(families)]

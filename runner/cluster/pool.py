@@ -303,7 +303,8 @@ def farm(pool: WorkerPool, jobs: list[Job], send: Callable[[Any, Job], Any], don
                 continue
             except ray.exceptions.RayTaskError as exc:
                 cause = exc.cause
+                detail = f"{type(cause).__name__}: {first_line(cause)}" if cause is not None else first_line(exc)
                 raise cause if isinstance(cause, errors.JigwrightError) else ClusterError(
-                    f"{pool.name(i)} failed: {first_line(exc)}") from None
+                    f"{pool.name(i)} failed: {detail}") from None
             done(job, result)
     return not stop()
