@@ -41,7 +41,8 @@ class EvalJob:
 
     @property
     def label(self) -> str:
-        where = "" if self.method == "split" else f" tasks {self.first + 1}-{self.first + len(self.tasks)}"
+        a, b = self.first + 1, self.first + len(self.tasks)
+        where = "" if self.method == "split" else f" task {a}" if a == b else f" tasks {a}-{b}"
         return f"{self.family.name[:24]} · {self.method}{where}"
 
 
