@@ -59,3 +59,11 @@ def _fresh_fill_policy():
 
     forget_fill_misses()
     yield
+
+
+@pytest.fixture(autouse=True)
+def _own_pattern_books(tmp_path_factory, monkeypatch):
+    """Pattern books learned by a test stay in that test's own folder, never in the person's JIGWRIGHT_HOME."""
+    folder = tmp_path_factory.mktemp("patterns")
+    monkeypatch.setattr(settings, "patterns_dir", lambda: folder)
+    yield
