@@ -697,7 +697,7 @@ def _print_report(report, console: Console) -> None:
         f"queue {report.queue} → answers {report.out}\n"
         f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
         f"errors {report.errors}{_kinds(report.error_kinds)}\n"
-        + _pattern_line(report) +
+        + _pattern_line(report)
         + (f"superseded {report.superseded}: earlier records of tasks answered again\n" if report.superseded else "")
         + (f"routes kept from an interrupted run: {report.routes_reused}\n" if report.routes_reused else "")
         + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +

@@ -30,21 +30,23 @@ class PatternStore:
         self.folder = Path(folder)
         self.notes: list[str] = []
         self.writable = True
-        self._cache: dict[str, tuple[tuple[int, int], Book]] = {}
+        self._cache: dict[str, tuple[tuple[int, int, int], Book]] = {}
 
     def path(self, tool: str) -> Path:
         return self.folder / f"{tool}.json"
 
-    def load(self, tool: str) -> Book:
-        """The book of `tool` (empty when there is none or it cannot be read)."""
+    def load(self, tool: str, fresh: bool = False) -> Book:
+        """The book of `tool` (empty when there is none or it cannot be read). Unless `fresh`, a copy read
+        earlier is reused while the file's identity, time and size are unchanged (changes read it `fresh`:
+        two writes within one clock tick can leave all three alike)."""
         path = self.path(tool)
         try:
             st = path.stat()
         except OSError:
             return Book(tool=tool)
-        stamp = (st.st_mtime_ns, st.st_size)
+        stamp = (st.st_ino, st.st_mtime_ns, st.st_size)
         kept = self._cache.get(tool)
-        if kept is not None and kept[0] == stamp:
+        if kept is not None and kept[0] == stamp and not fresh:
             return kept[1].model_copy(deep=True)
         try:
             book = Book.model_validate_json(path.read_bytes())
@@ -73,7 +75,7 @@ class PatternStore:
             return None
         try:
             with self._locked(tool):
-                book = self.load(tool)
+                book = self.load(tool, fresh=True)
                 before = book.model_dump_json()
                 result = change(book)
                 text = book.model_dump_json()

@@ -276,3 +276,21 @@ def test_real_pattern_fills_equal_the_executors_and_the_reference_solver(tmp_hom
         # the reference: the family's own solver on the generator's parameters
         assert with_patterns[tid]["answer"] == departures.solve(**row["params"]) == row["answer"]
     assert all(executor_only[r["id"]]["filled_by"] == "executor" for r in rows if executor_only[r["id"]]["status"] == "tool")
+
+
+def test_the_summary_screen_shows_the_share_filled_by_patterns_in_80_columns():
+    from rich.console import Console
+
+    from runner.cli import _print_report
+    from runner.queue import AnswerRecord
+
+    recs = [AnswerRecord(id=str(i), status="tool", tool_backed=True, filled_by="pattern" if i < 3 else "executor",
+                         pattern_check="agreed" if i == 3 else None, cpu={"model": 0.1, "route": 0.1})
+            for i in range(4)]
+    report = summarise(recs, queue="q.jsonl", out="q.answers.jsonl", skipped=0, wall_seconds=1.0,
+                       process_cpu_seconds=1.0, load_cpu_seconds=0.0)
+    console = Console(width=80, record=True)
+    _print_report(report, console)
+    lines = console.export_text().splitlines()
+    assert "filled by patterns 3 (75% of tasks); 1 cross-checked, 0 disagreed" in lines
+    assert max(map(len, lines)) <= 80
