@@ -21,7 +21,7 @@ import pytest
 from runner.errors import ClusterError, ModelMissingError
 from runner.queue import AnswerRecord
 from runner.runloop import RunOptions
-from conftest import ROOT, need_models
+from conftest import REAL_HOME, ROOT, need_models
 from test_runloop import TOOLS, _queue_of, by_id, real_queue, real_tools, write_queue
 
 ray = pytest.importorskip("ray", reason="the cluster extra is not installed: pip install 'jigwright[cluster]'")
@@ -33,15 +33,25 @@ TESTS = Path(__file__).resolve().parent
 
 
 @pytest.fixture(scope="module")
-def local_ray():
-    """One local Ray instance for the module: 2 CPUs, no dashboard; workers see the project and this folder."""
+def local_ray(tmp_path_factory):
+    """One local Ray instance for the module: 2 CPUs, no dashboard; workers see the project and this folder,
+    and a JIGWRIGHT_HOME of their own (with the real models) so what they learn (pattern books) stays here."""
     old = os.environ.get("PYTHONPATH")
+    old_home = os.environ.get("JIGWRIGHT_HOME")
+    home = tmp_path_factory.mktemp("ray-home")
+    if (REAL_HOME / "models").exists():
+        (home / "models").symlink_to(REAL_HOME / "models", target_is_directory=True)
+    os.environ["JIGWRIGHT_HOME"] = str(home)
     os.environ["PYTHONPATH"] = os.pathsep.join([str(ROOT), str(TESTS)] + ([old] if old else []))
     os.environ.setdefault("RAY_worker_niceness", "0")  # as runner/cluster/pool.py starts Ray
     ray.init(address="local", num_cpus=2, include_dashboard=False, object_store_memory=100 * 1024 * 1024,
              logging_level="WARNING", log_to_driver=False)
     yield ray
     ray.shutdown()
+    if old_home is None:
+        os.environ.pop("JIGWRIGHT_HOME", None)
+    else:
+        os.environ["JIGWRIGHT_HOME"] = old_home
     if old is None:
         os.environ.pop("PYTHONPATH", None)
     else:
