@@ -2,7 +2,8 @@
 
 A queue of N tasks is drawn from the demo families' generators (seeded, families in turn), so phrasings recur
 as they do on an operations desk. The run loop answers it twice in one process with the same executor (one
-llama.cpp thread) and the hand-made tools of bench/handmade.py: first with `--no-patterns` (every fill by the
+llama.cpp thread) and the hand-made tools of bench/handmade.py, both starting from saved warm states of the
+router's and the tools' prompts (made first, not counted): first with `--no-patterns` (every fill by the
 executor), then with patterns on, starting from an empty pattern book (so the first questions of each phrasing
 are the executor's while patterns are learned and confirmed). Answers are checked against the generators'
 answers (each family's reference solver). Prints CPU s per task (all, and by step: routing, filling, tool) for
@@ -93,6 +94,11 @@ def main() -> None:
         # llama.cpp's first decode after loading is slow (buffers are set up); keep it out of both runs
         model.chat([{"role": "user", "content": "Hi"}], seed=0, temperature=0.0, max_tokens=1)
         tools = handmade_tools(args.families)
+        # both runs start as `jigwright answer` does, from saved states of the router's and each tool's prompt
+        # (made here, not counted), so neither pays for evaluating them first
+        from runner import warmup
+
+        warmup.prepare(model, [t.card for t in tools])
         results = {}
         for patterns in (False, True):
             print(f"answering {len(queue)} tasks with patterns {'on' if patterns else 'off'}", file=sys.stderr,
