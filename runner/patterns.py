@@ -35,7 +35,6 @@ MAX_PATTERNS = 2000  # per tool; past it the oldest patterns not yet confirmed a
 SEPARATORS = (", and ", ", ", " and ")  # between the items of a list slot
 
 Kind = Literal["int", "number", "date", "time", "text"]
-Path = tuple  # keys (str) and, for the list a value belongs to, an index (int)
 _KIND_RX = {"int": r"-?\d+", "number": r"-?\d+(?:\.\d+)?", "date": r"\d{4}-\d{2}-\d{2}", "time": r"\d{1,2}:\d{2}"}
 _DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 _TIME = re.compile(r"\d{1,2}:\d{2}")
@@ -367,7 +366,7 @@ def derive(question: str, arguments: dict[str, Any]) -> list[Pattern]:
             raise NotLearned(f"{'/'.join(map(str, path)) or '(top)'}: {value!r} is not a value a question states")
         found.append(_Leaf(path, value, kind))
     for lf in found:
-        lf.item  # raises for lists inside list items
+        lf.index_at  # noqa: B018 (raises NotLearned for a list inside a list item)
     _place(text, bounds, found)
     by_sentence: dict[int, list[_Leaf]] = {}
     for lf in found:
@@ -444,16 +443,13 @@ def _disagreeing(prediction: Prediction, arguments: dict[str, Any]) -> list[str]
     wrong: set[str] = set()
     counters: dict[tuple, int] = {}
     for r in prediction.readings:
-        if r.pattern.item_of is None:
-            base: Any = arguments
-            prefix: tuple = ()
-        else:
+        prefix: tuple = ()
+        if r.pattern.item_of is not None:
             lst = tuple(r.pattern.item_of)
-            index = counters.get(lst, 0)
-            counters[lst] = index + 1
-            base, prefix = arguments, lst + (index,)
+            prefix = lst + (counters.get(lst, 0),)
+            counters[lst] = prefix[-1] + 1
         for path, value in r.values:
-            got = base
+            got: Any = arguments
             for k in prefix + path:
                 try:
                     got = got[k]
