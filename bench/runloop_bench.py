@@ -93,7 +93,8 @@ def main() -> None:
         out = Path(tmp) / "answers.jsonl"
         setup = Setup(tools=tools, executor=model, fallback_model=lambda: model)
         with Stopwatch() as sw:
-            report = run_queue(str(qfile), out, RunOptions(fallback="executor"), setup)
+            # patterns off: the floor replays model calls, and a pattern fill makes none
+            report = run_queue(str(qfile), out, RunOptions(fallback="executor", patterns=False), setup)
         records = [json.loads(l) for l in out.read_text().splitlines()]
         if args.keep:
             Path(args.keep).write_text(out.read_text())

@@ -654,13 +654,14 @@ class _RunProgress:
         self.bar.console.print(f"[yellow]{text}[/yellow]", highlight=False)
 
 
-def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = True, retry_failed: bool = False):
+def _run_options(fallback: str, min_confidence: float, seed: int, group: bool = True, retry_failed: bool = False,
+                 patterns: bool = True):
     from .runloop import RunOptions
 
     if fallback not in ("builder", "executor", "none"):
         raise typer.BadParameter("--fallback must be builder, executor or none")
     return RunOptions(fallback=fallback, min_confidence=min_confidence, seed=seed, group=group,
-                      retry_failed=retry_failed)
+                      retry_failed=retry_failed, patterns=patterns)
 
 
 def _report_table(report) -> Table:
@@ -678,6 +679,16 @@ def _kinds(kinds: dict) -> str:
     return (": " + ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in kinds.items())) if kinds else ""
 
 
+def _pattern_line(report) -> str:
+    """How many tasks sentence patterns filled (no model call) and how their cross-checks went."""
+    answered = report.tasks - report.errors
+    if not answered or not (report.by_pattern or report.pattern_checks):
+        return ""
+    checks = (f"; {report.pattern_checks} cross-checked, {report.pattern_disagreements} disagreed"
+              if report.pattern_checks else "")
+    return f"filled by patterns {report.by_pattern} ({report.by_pattern / answered:.0%} of tasks){checks}\n"
+
+
 def _print_report(report, console: Console) -> None:
     console.print(_report_table(report))
     sv = report.savings
@@ -686,6 +697,7 @@ def _print_report(report, console: Console) -> None:
         f"queue {report.queue} → answers {report.out}\n"
         f"tasks {report.tasks}: tool {report.by_tool}, fallback {report.by_fallback}, failed {report.failed}, "
         f"errors {report.errors}{_kinds(report.error_kinds)}\n"
+        + _pattern_line(report)
         + (f"superseded {report.superseded}: earlier records of tasks answered again\n" if report.superseded else "")
         + (f"routes kept from an interrupted run: {report.routes_reused}\n" if report.routes_reused else "")
         + (f"skipped {report.skipped}: already in the answers file\n" if report.skipped else "") +
@@ -719,6 +731,7 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
             cluster: Optional[str] = typer.Option(None, "--cluster", help="Join the Ray cluster at this address instead of starting Ray here (with --workers)."),
             expected: Optional[Path] = typer.Option(None, "--expected", help="JSONL of {id, family, answer} to score routes and answers against."),
             retry_failed: bool = typer.Option(False, "--retry-failed", help="Answer again the tasks whose newest record failed or is an error."),
+            patterns: bool = typer.Option(True, "--patterns/--no-patterns", help="Fill arguments from sentence patterns learned from the executor's fills when a question matches them (no model call); --no-patterns always asks the executor."),
             as_json: bool = typer.Option(False, "--json", help="The run report as JSON on stdout.")) -> None:
     """Answer a queue of questions. Each is routed to a tool whose arguments the executor fills, or else to the
     fallback; one answer record per task.
@@ -738,7 +751,7 @@ def answer_cmd(queue: str = typer.Argument(..., help="Queue file (JSONL: {\"id\"
     from .runloop import default_out, local_setup, run_queue
 
     caution()
-    options = _run_options(fallback, min_confidence, seed, group, retry_failed)
+    options = _run_options(fallback, min_confidence, seed, group, retry_failed, patterns)
     target = default_out(queue) if out_file is None else (None if out_file == "-" else Path(out_file))
     if out_file is None and target is None:
         raise InputError("reading the queue from stdin needs --out FILE (or --out - for stdout)")
@@ -805,12 +818,13 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
             builder: Optional[str] = typer.Option(None, "--builder", help="Builder model name, for the fallback."),
             seed: int = typer.Option(0, "--seed"),
             threads: int = typer.Option(1, "--threads", min=0, help="llama.cpp threads per model (0: one per physical core)."),
+            patterns: bool = typer.Option(True, "--patterns/--no-patterns", help="Fill arguments from sentence patterns learned from the executor's fills when a question matches them (no model call); --no-patterns always asks the executor."),
             as_json: bool = typer.Option(False, "--json", help="The answer record as JSON on stdout.")) -> None:
     """Answer one question the way `answer` would. Shows its route, arguments and cost."""
     from .runloop import ask, local_setup
 
     caution()
-    options = _run_options(fallback, min_confidence, seed)
+    options = _run_options(fallback, min_confidence, seed, patterns=patterns)
     setup = local_setup(options, executor, builder, verbose=STATE["verbose"], threads=threads)
     for note in setup.notes:
         err.print(f"[yellow]{note}[/yellow]", highlight=False, soft_wrap=True)
@@ -824,7 +838,9 @@ def ask_cmd(question: str = typer.Argument(..., help="The question."),
     backed = "tool-backed" if rec.tool_backed else "[yellow]not tool-backed[/yellow]"
     answer = escape(str(rec.answer)) if rec.answer is not None else "(none)"
     out.print(f"[bold]answer:[/bold] {answer}  ({rec.status}, {backed})", soft_wrap=True)
-    out.print(escape(f"route: {rec.route}{conf}"), highlight=False, soft_wrap=True)
+    filled = {"pattern": ", arguments from sentence patterns", "executor": ", arguments from the executor"}.get(
+        rec.filled_by or "", "")
+    out.print(escape(f"route: {rec.route}{conf}{filled}"), highlight=False, soft_wrap=True)
     if rec.arguments is not None:
         out.print(escape(f"arguments: {json.dumps(rec.arguments, ensure_ascii=False)}"), highlight=False, soft_wrap=True)
     if rec.reply and str(rec.answer) != rec.reply.strip():

@@ -24,6 +24,9 @@ Status = Literal["tool", "fallback", "failed", "error"]
 # What went wrong in an error record: a bad queue line, a question too long for the model's context, an
 # unexpected failure while routing, using the tool or falling back, or a record that could not be written as is.
 ErrorKind = Literal["input", "too_long", "route", "tool", "fallback", "unwritable"]
+# "pattern", not "template": templates are the prompt files in prompts/.
+FilledBy = Literal["pattern", "executor"]
+PatternCheck = Literal["agreed", "disagreed"]
 
 
 class Task(BaseModel):
@@ -35,9 +38,10 @@ class Task(BaseModel):
 
 
 class Cpu(BaseModel):
-    """CPU seconds of one task: model calls (this process, all threads) and tool runs (sandbox workers). Of the
-    model's seconds, `route` went to routing and `fill` to filling the tool's arguments; the rest (model minus
-    both) to the fallback's direct answer."""
+    """CPU seconds of one task: model calls and the pattern matcher (this process, all threads) and tool runs
+    (sandbox workers). Of the model's seconds, `route` went to routing and `fill` to filling the tool's
+    arguments (by the executor or from sentence patterns, and learning patterns from the fill); the rest
+    (model minus both) to the fallback's direct answer."""
 
     model: float = 0.0
     tool: float = 0.0
@@ -77,6 +81,10 @@ class AnswerRecord(BaseModel):
     error: str | None = None
     error_kind: ErrorKind | None = None
     attempts: int = 0
+    filled_by: FilledBy | None = Field(None, description="who filled the tool's arguments: the executor model, or "
+                                                         "sentence patterns learned from its earlier fills")
+    pattern_check: PatternCheck | None = Field(None, description="a pattern fill the executor filled again to check "
+                                                                 "it: agreed, or disagreed (its patterns retired)")
     cpu: Cpu = Field(default_factory=Cpu)
     wall_seconds: float = 0.0
     tokens: Tokens = Field(default_factory=Tokens)

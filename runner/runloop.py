@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 import signal
 import threading
+import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,11 +26,13 @@ from pydantic import BaseModel, Field
 from . import shapecheck
 from .errors import (ConfigError, ContextOverflowError, JigwrightError, ModelIntegrityError, ModelLoadError,
                      ModelMissingError, NotGGUFError, OutputError, UnknownModelError)
-from .execute import DIRECT_MAX_TOKENS, answer_directly, answer_with_tool, direct_messages
+from .execute import DIRECT_MAX_TOKENS, answer_directly, answer_with_tool, direct_messages, schema_problem
 from .llm import ChatModel, prompt_size
 from .meter import Stopwatch, Usage
-from .queue import (NONE_ROUTE, AnswerRecord, AnswerWriter, BadLine, Cpu, QueueReader, Resumed, RouteJournal, Task,
-                    Tokens)
+from .patterns import Prediction, check_due, learn, predict, retire, tool_key
+from .patternstore import PatternStore
+from .queue import (NONE_ROUTE, AnswerRecord, AnswerWriter, BadLine, Cpu, FilledBy, PatternCheck, QueueReader,
+                    Resumed, RouteJournal, Task, Tokens)
 from .route import Route, route
 from .tools import Tool
 
@@ -54,6 +57,9 @@ class RunOptions(BaseModel):
     retries: int = Field(1, ge=0)
     retry_temperature: float = 0.3
     retry_failed: bool = False
+    patterns: bool = Field(True, description="fill arguments from sentence patterns learned from the executor's "
+                                             "fills when every sentence of a question matches (runner/patterns.py)")
+    pattern_check_every: int = Field(20, ge=1, description="the executor checks 1 in this many pattern fills")
 
 
 class Progress(Protocol):
@@ -125,9 +131,12 @@ class _Work:
     fill_cpu: float = 0.0
     tool_cpu: float = 0.0
     tool_wall: float = 0.0
+    pattern_cpu: float = 0.0  # matching and learning sentence patterns (no model call)
     attempts: int = 0
     arguments: dict[str, Any] | None = None
     error: str | None = None
+    filled_by: FilledBy | None = None
+    pattern_check: PatternCheck | None = None
 
     def record(self, status: str, answer: Any = None, tool_backed: bool = False,
                reply: str | None = None, error_kind: str | None = None) -> AnswerRecord:
@@ -137,8 +146,10 @@ class _Work:
             id=self.task.id, line=self.task.line, question=self.task.question, answer=answer, reply=reply,
             route=r.tool if r else NONE_ROUTE, confidence=r.confidence if r else None, arguments=self.arguments,
             status=status, tool_backed=tool_backed, error=self.error, error_kind=error_kind, attempts=self.attempts,
-            cpu=Cpu(model=round(u.cpu_seconds, 4), tool=round(self.tool_cpu, 4), route=round(self.route_cpu, 4),
-                    fill=round(self.fill_cpu, 4)),
+            filled_by=self.filled_by if tool_backed else None,
+            pattern_check=self.pattern_check if tool_backed else None,
+            cpu=Cpu(model=round(u.cpu_seconds + self.pattern_cpu, 4), tool=round(self.tool_cpu, 4),
+                    route=round(self.route_cpu, 4), fill=round(self.fill_cpu + self.pattern_cpu, 4)),
             wall_seconds=round(u.wall_seconds + self.tool_wall, 4),
             tokens=Tokens(prompt=u.prompt_tokens, completion=u.completion_tokens, cached=u.cached_tokens,
                           forced=u.forced_tokens, restored=u.restored_tokens))
@@ -146,10 +157,11 @@ class _Work:
 
 class Engine:
     """Route, execute and fall back for single tasks, given the verified tools, the executor, a factory for
-    the fallback model (loaded only when first needed) and a sandbox."""
+    the fallback model (loaded only when first needed), a sandbox and the pattern books (None: no patterns)."""
 
     def __init__(self, tools: list[Tool], executor: ChatModel, sandbox: Any, options: RunOptions,
-                 fallback_model: Callable[[], ChatModel] | None = None):
+                 fallback_model: Callable[[], ChatModel] | None = None, patterns: PatternStore | None = None):
+        self.patterns = patterns if options.patterns else None
         self.tools = {t.name: t for t in tools}
         self.cards = [t.card for t in tools]
         self.executor = executor
@@ -254,6 +266,11 @@ class Engine:
         tool = self.tools.get(work.route.tool)
         if tool is None:
             return None
+        checking: Prediction | None = None
+        if self.patterns is not None:
+            done, checking = self.pattern_fill(work, tool)
+            if done is not None:
+                return done
         out = answer_with_tool(self.executor, tool, work.task.question, self.sandbox, seed=self.options.seed,
                                retries=self.options.retries, retry_temperature=self.options.retry_temperature)
         work.usage = work.usage + out.usage
@@ -265,11 +282,60 @@ class Engine:
         if out.ok:
             misfit = self.misfit(tool, work.task.question, out.arguments)
             if misfit is None:
+                work.filled_by = "executor"
+                if self.patterns is not None and out.arguments is not None:
+                    self.learn_patterns(work, tool, out.arguments, checking)
                 return work.record("tool", out.value, tool_backed=True)
             work.error = misfit
             return None
         work.error = out.error
         return None
+
+    def pattern_fill(self, work: _Work, tool: Tool) -> tuple[AnswerRecord | None, Prediction | None]:
+        """Answer from the tool's confirmed sentence patterns, with no model call: the record when every sentence
+        matched and the arguments passed the schema check, the fit check and the tool run; else (None, None) and
+        the executor fills as usual. A fill sampled for a cross-check comes back as (None, its prediction)."""
+        assert self.patterns is not None
+        started = time.process_time()
+        key = tool_key(tool.code, tool.entry, tool.schema_)
+        pred = predict(self.patterns.load(key), work.task.question, tool.schema_)
+        args = pred.arguments
+        fits = args is not None and schema_problem(tool.schema_, args) is None \
+            and self.misfit(tool, work.task.question, args) is None
+        work.pattern_cpu += time.process_time() - started
+        if not fits:
+            return None, None
+        try:
+            result = self.sandbox.run(tool.code, args, entry=tool.entry)
+        except Exception:  # the executor's path runs the tool again and reports what goes wrong
+            return None, None
+        work.tool_cpu += result.cpu_seconds
+        work.tool_wall += result.wall_seconds
+        if not result.ok or result.value is None:
+            return None, None
+        if check_due(key, work.task.id, self.options.pattern_check_every):
+            return None, pred
+        work.arguments, work.filled_by, work.attempts = args, "pattern", 0
+        return work.record("tool", result.value, tool_backed=True), None
+
+    def learn_patterns(self, work: _Work, tool: Tool, arguments: dict[str, Any], checking: Prediction | None) -> None:
+        """Fold a checked executor fill into the tool's pattern book; a cross-checked pattern fill that
+        disagrees with it has its patterns retired."""
+        assert self.patterns is not None
+        started = time.process_time()
+        question, schema = work.task.question, tool.schema_
+        disagreed = checking is not None and checking.arguments != arguments
+
+        def change(book):
+            lesson = learn(book, question, arguments, schema)
+            if disagreed and checking is not None and not lesson.retired:
+                retire(book, checking.used, "disagreed with the executor on a cross-check", lesson)
+            return lesson
+
+        self.patterns.update(tool_key(tool.code, tool.entry, schema), change)
+        if checking is not None:
+            work.pattern_check = "disagreed" if disagreed else "agreed"
+        work.pattern_cpu += time.process_time() - started
 
     @staticmethod
     def misfit(tool: Tool, question: str, arguments: dict[str, Any] | None) -> str | None:
@@ -352,6 +418,10 @@ class RunReport(BaseModel):
     tasks: int = Field(description="answer records written by this run (errors included)")
     skipped: int = Field(description="tasks and bad lines already in the answers file")
     by_tool: int
+    by_pattern: int = Field(0, description="of the tool answers, those whose arguments sentence patterns filled "
+                                           "(no model call)")
+    pattern_checks: int = Field(0, description="pattern fills the executor filled again to check them")
+    pattern_disagreements: int = Field(0, description="checks where the executor disagreed (patterns retired)")
     by_fallback: int
     failed: int
     errors: int
@@ -425,6 +495,9 @@ def summarise(records: list[AnswerRecord], *, queue: str, out: str, skipped: int
     return RunReport(
         queue=queue, out=out, tasks=len(records), skipped=skipped,
         by_tool=sum(r.status == "tool" for r in records), by_fallback=sum(r.status == "fallback" for r in records),
+        by_pattern=sum(r.filled_by == "pattern" for r in records),
+        pattern_checks=sum(r.pattern_check is not None for r in records),
+        pattern_disagreements=sum(r.pattern_check == "disagreed" for r in records),
         failed=sum(r.status == "failed" for r in records), errors=sum(r.status == "error" for r in records),
         cpu_per_task=stats, cpu_by_step=cpu_steps(answered), task_cpu_seconds=round(sum(r.cpu.total for r in records), 3),
         model_load_cpu_seconds=round(load_cpu_seconds, 3), total_cpu_seconds=round(total_cpu, 3),
@@ -460,8 +533,13 @@ class RunLoop:
         self.routes_reused = 0
         self._earlier = set(self.resumed.latest)
         self._done_lines = set(self.resumed.done_error_lines)
+        self._told = 0  # notes of the pattern books already shown
 
     def _write(self, record: AnswerRecord) -> None:
+        patterns = self.engine.patterns
+        while patterns is not None and len(patterns.notes) > self._told:
+            self.progress.message(patterns.notes[self._told])
+            self._told += 1
         record = self.writer.write(record)
         self.records.append(record)
         if record.error_kind != "input" and record.id in self._earlier:
@@ -685,6 +763,13 @@ def model_setup(tools: list[Tool], options: RunOptions, executor_name: str | Non
     return setup
 
 
+def pattern_books(options: RunOptions) -> PatternStore | None:
+    """The pattern books under JIGWRIGHT_HOME, or None when patterns are off (`--no-patterns`)."""
+    from .patternstore import default_store
+
+    return default_store() if options.patterns else None
+
+
 def open_queue(queue: str, out: Path | None) -> QueueReader:
     """A reader of the queue, once it is known to exist and not to be the answers file itself."""
     from .errors import InputError
@@ -725,7 +810,7 @@ def run_queue(queue: str, out: Path | None, options: RunOptions, setup: Setup, *
         if not setup.tools:
             progress.message("no verified tools in the tool store: every question goes to the fallback")
         with Sandbox(pool_size=1) as sandbox:
-            engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
+            engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model, pattern_books(options))
             journal = RouteJournal(journal_path(out) if out is not None and options.group and not follow else None,
                                    engine.router_key)
             loop = RunLoop(engine, writer, resumed, progress, StopFlag(progress), journal)
@@ -748,7 +833,7 @@ def ask(question: str, options: RunOptions, setup: Setup) -> AnswerRecord:
         raise InputError(f"the question is not UTF-8 text (byte 0x{ord(question[at]) & 0xff:02x} at character "
                          f"{at + 1})")
     with Sandbox(pool_size=1) as sandbox:
-        engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model)
+        engine = Engine(setup.tools, setup.executor, sandbox, options, setup.fallback_model, pattern_books(options))
         record = engine.answer(Task(id="ask", question=question.strip(), line=0))
     if record.error_kind == "too_long":
         raise InputError(record.error or "the question is too long")

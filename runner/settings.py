@@ -47,6 +47,11 @@ def warm_dir() -> Path:
     return home() / "warm"
 
 
+def patterns_dir() -> Path:
+    """Sentence patterns learned from the executor's fills, one book per tool (runner/patternstore.py)."""
+    return home() / "patterns"
+
+
 def registry_file() -> Path:
     """The shipped models.toml (override with JIGWRIGHT_MODELS_TOML)."""
     env = os.environ.get("JIGWRIGHT_MODELS_TOML")

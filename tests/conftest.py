@@ -62,19 +62,34 @@ def _fresh_fill_policy():
 
 
 @pytest.fixture(scope="module")
-def local_ray():
+def local_ray(tmp_path_factory):
     """One local Ray instance per test module (the cluster tests): 2 CPUs, no dashboard; workers see the
-    project and the tests folder."""
+    project and the tests folder, and a JIGWRIGHT_HOME of their own (with the real models) so what they learn
+    (pattern books) stays there."""
     ray = pytest.importorskip("ray", reason="the cluster extra is not installed: pip install 'jigwright[cluster]'")
     tests = Path(__file__).resolve().parent
     old = os.environ.get("PYTHONPATH")
+    old_home = os.environ.get("JIGWRIGHT_HOME")
+    home = tmp_path_factory.mktemp("ray-home")
+    if (REAL_HOME / "models").exists():
+        (home / "models").symlink_to(REAL_HOME / "models", target_is_directory=True)
+    os.environ["JIGWRIGHT_HOME"] = str(home)
     os.environ["PYTHONPATH"] = os.pathsep.join([str(ROOT), str(tests)] + ([old] if old else []))
     os.environ.setdefault("RAY_worker_niceness", "0")  # as runner/cluster/pool.py starts Ray
     ray.init(address="local", num_cpus=2, include_dashboard=False, object_store_memory=100 * 1024 * 1024,
              logging_level="WARNING", log_to_driver=False)
     yield ray
     ray.shutdown()
-    if old is None:
-        os.environ.pop("PYTHONPATH", None)
-    else:
-        os.environ["PYTHONPATH"] = old
+    for name, value in (("JIGWRIGHT_HOME", old_home), ("PYTHONPATH", old)):
+        if value is None:
+            os.environ.pop(name, None)
+        else:
+            os.environ[name] = value
+
+
+@pytest.fixture(autouse=True)
+def _own_pattern_books(tmp_path_factory, monkeypatch):
+    """Pattern books learned by a test stay in that test's own folder, never in the person's JIGWRIGHT_HOME."""
+    folder = tmp_path_factory.mktemp("patterns")
+    monkeypatch.setattr(settings, "patterns_dir", lambda: folder)
+    yield

@@ -21,7 +21,7 @@ import pytest
 from runner.errors import ClusterError, ModelMissingError
 from runner.queue import AnswerRecord
 from runner.runloop import RunOptions
-from conftest import ROOT, need_models
+from conftest import REAL_HOME, ROOT, need_models
 from test_runloop import TOOLS, _queue_of, by_id, real_queue, real_tools, write_queue
 
 ray = pytest.importorskip("ray", reason="the cluster extra is not installed: pip install 'jigwright[cluster]'")

@@ -43,7 +43,7 @@ class AnswerWorker(WorkerBase):
 
     def prepare(self) -> None:
         """Check the model files, load the executor and start the sandbox pool."""
-        from ..runloop import model_setup
+        from ..runloop import model_setup, pattern_books
         from ..sandbox import Sandbox
 
         executor_name, builder_name = self.names
@@ -57,7 +57,8 @@ class AnswerWorker(WorkerBase):
         self.opened = setup.opened
         self.sandbox = Sandbox(pool_size=1)
         self.sandbox.start()
-        self.engine = Engine(setup.tools, setup.executor, self.sandbox, self.options, setup.fallback_model)
+        self.engine = Engine(setup.tools, setup.executor, self.sandbox, self.options, setup.fallback_model,
+                             pattern_books(self.options))
 
     def _signed(self, record: AnswerRecord | None) -> AnswerRecord | None:
         return None if record is None else record.model_copy(update={"node": self.node, "worker": self.worker})
