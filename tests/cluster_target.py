@@ -1,5 +1,6 @@
 """A run on two workers in its own process, for the driver-SIGKILL test (test_cluster.py): it starts its own
-local Ray instance and answers with the scripted double, pausing on each model call so a kill lands mid-run.
+local Ray instance and answers with the scripted double, pausing on each model call so a kill lands mid-run
+(patterns off: a pattern fill makes no model call, so nothing would pause).
 Usage: python cluster_target.py QUEUE ANSWERS"""
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ from test_runloop import TOOLS  # noqa: E402
 
 def main() -> None:
     queue, out = sys.argv[1], Path(sys.argv[2])
-    report = answer_on_workers(queue, out, RunOptions(fallback="executor"), ClusterOptions(workers=2), tools=TOOLS,
+    report = answer_on_workers(queue, out, RunOptions(fallback="executor", patterns=False), ClusterOptions(workers=2), tools=TOOLS,
                                setup=functools.partial(scripted_setup, pause=0.2))
     print(report.tasks, report.skipped, int(report.interrupted), report.routes_reused, flush=True)
 

@@ -32,6 +32,12 @@ from cluster_doubles import scripted_setup  # noqa: E402
 TESTS = Path(__file__).resolve().parent
 
 
+# The faults below are injected in the scripted executor's fill call, and the module's workers share one pattern
+# book (their JIGWRIGHT_HOME is fixed when Ray starts): with patterns on, a question learned by an earlier test
+# would be filled with no model call and the fault would never fire.
+NO_PATTERNS = RunOptions(fallback="executor", patterns=False)
+
+
 def two_workers(**kw) -> ClusterOptions:
     return ClusterOptions(workers=2, **kw)
 
@@ -80,7 +86,7 @@ def test_a_worker_killed_mid_run_loses_and_duplicates_nothing(local_ray, tmp_pat
     q = write_queue(tmp_path / "q.jsonl", _queue_of(8))
     out = tmp_path / "out.jsonl"
     marker = tmp_path / "killed"
-    report = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
+    report = answer_on_workers(str(q), out, NO_PATTERNS, two_workers(), tools=TOOLS,
                                setup=functools.partial(scripted_setup, pause=0.05, kill_on="Add 3 and",
                                                        marker=str(marker)))
     assert marker.exists()  # a worker really died, while filling t3's arguments
@@ -97,7 +103,7 @@ def test_a_worker_killed_mid_run_loses_and_duplicates_nothing(local_ray, tmp_pat
 def test_a_task_that_kills_every_worker_gets_an_error_record(local_ray, tmp_path):
     q = write_queue(tmp_path / "q.jsonl", [{"id": "poison", "question": "Add 1 and 2."}])
     out = tmp_path / "out.jsonl"
-    report = answer_on_workers(str(q), out, RunOptions(fallback="executor"), two_workers(), tools=TOOLS,
+    report = answer_on_workers(str(q), out, NO_PATTERNS, two_workers(), tools=TOOLS,
                                setup=functools.partial(scripted_setup, kill_on="Add 1 and"))
     (rec,) = records(out)
     assert rec.id == "poison" and rec.status == "error" and "died 2 times" in rec.error
@@ -141,7 +147,10 @@ def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "out.jsonl"
     cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+    home = tmp_path / "home"  # its own JIGWRIGHT_HOME, whatever an earlier test or fixture set
+    home.mkdir()
+    env = {**os.environ, "JIGWRIGHT_HOME": str(home)}
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env)
     started: set[int] = set()
     try:
         deadline = time.time() + 240
@@ -163,7 +172,7 @@ def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
             time.sleep(0.5)
         print(f"Ray's processes were gone {time.time() - deadline + 120:.0f} s after the kill")
         assert not _alive(started), [Path(f"/proc/{p}/cmdline").read_bytes()[:40] for p in _alive(started)]
-        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300, env=env)
         assert done.returncode == 0, done.stderr[-2000:]
         # answered, skipped, not interrupted, and every route taken from the killed run's journal
         rest = str(len(tasks) - len(first))
@@ -263,7 +272,11 @@ def test_ctrl_c_finishes_the_tasks_in_hand_and_a_rerun_completes(tmp_path):
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "out.jsonl"
     cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, start_new_session=True)
+    home = tmp_path / "home"  # its own JIGWRIGHT_HOME, whatever an earlier test or fixture set
+    home.mkdir()
+    env = {**os.environ, "JIGWRIGHT_HOME": str(home)}
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, start_new_session=True,
+                            env=env)
     try:
         deadline = time.time() + 240
         while time.time() < deadline and proc.poll() is None:
@@ -279,7 +292,7 @@ def test_ctrl_c_finishes_the_tasks_in_hand_and_a_rerun_completes(tmp_path):
     first = records(out)
     assert interrupted == 1 and answered == len(first) < len(tasks) and skipped == 0
     assert all(r.status == "tool" for r in first)  # the tasks in hand were finished, not cut off
-    done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=300, env=env)
     rest = str(len(tasks) - len(first))  # the rest answered, with the routes of the interrupted run
     assert done.stdout.split() == [rest, str(len(first)), "0", rest], done.stderr[-2000:]
     assert sorted(r.id for r in records(out)) == sorted(t["id"] for t in tasks)
