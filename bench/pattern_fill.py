@@ -69,7 +69,21 @@ def summary(queue: list[dict], records: list[dict], report: dict) -> dict:
         "pattern_share": round(len(by_pattern) / max(len(records), 1), 3),
         "wrong_from_patterns": [r["id"] for r in by_pattern if not answers_match(want[r["id"]], r["answer"])],
         "cross_checks": report["pattern_checks"], "disagreements": report["pattern_disagreements"],
+        "by_id": {r["id"]: {"route": r.get("route"), "arguments": r.get("arguments"), "answer": r.get("answer"),
+                            "right": ok} for r, ok in zip(records, right)},
     }
+
+
+def caused_by_patterns(off: dict, on: dict) -> list[str]:
+    """Wrong pattern fills whose task the executor (patterns off) answered differently: the errors patterns
+    add. A wrong pattern fill that repeats the executor's own route, arguments and answer is the executor's
+    error (a misroute, a misread), which the pattern only copied."""
+    out = []
+    for tid in on["wrong_from_patterns"]:
+        a, b = on["by_id"][tid], off["by_id"].get(tid, {})
+        if (a["route"], a["arguments"], a["answer"]) != (b.get("route"), b.get("arguments"), b.get("answer")):
+            out.append(tid)
+    return out
 
 
 def main() -> None:
@@ -106,6 +120,7 @@ def main() -> None:
             records, report = answer(queue, model, tools, patterns, Path(tmp))
             results["on" if patterns else "off"] = summary(queue, records, report)
     off, on = results["off"], results["on"]
+    on["caused_by_patterns"] = caused_by_patterns(off, on)
     result = {"tasks": len(queue), "families": args.families, "seed": args.seed, "off": off, "on": on,
               "cpu_ratio_on_to_off": round(on["cpu_per_task"] / off["cpu_per_task"], 3) if off["cpu_per_task"] else None}
     if args.json:
@@ -118,9 +133,14 @@ def main() -> None:
         print(f"{name:<9}{s['cpu_per_task']:>11.2f}{st['routing']:>9.2f}{st['filling']:>9.2f}{st['tool']:>8.3f}"
               f"{s['right']:>7}{s['filled_by_pattern']:>7} {s['pattern_share']:>4.0%}")
     print(f"CPU per task, on/off: {result['cpu_ratio_on_to_off']}")
-    print(f"cross-checks {on['cross_checks']}, disagreements {on['disagreements']}; "
-          f"wrong answers from patterns: {len(on['wrong_from_patterns'])} (goal 0)"
-          + (f": {', '.join(on['wrong_from_patterns'])}" if on["wrong_from_patterns"] else ""))
+    print(f"cross-checks {on['cross_checks']}, disagreements {on['disagreements']}")
+    wrong = on["wrong_from_patterns"]
+    print(f"wrong answers among pattern fills: {len(wrong)}"
+          + "".join(f"\n  {t}: route {on['by_id'][t]['route']}, arguments {json.dumps(on['by_id'][t]['arguments'])}, "
+                    f"answer {on['by_id'][t]['answer']!r}" for t in wrong))
+    caused = on["caused_by_patterns"]
+    print(f"of them different from the executor's own fill with patterns off (errors patterns add): "
+          f"{len(caused)} (goal 0)" + (f": {', '.join(caused)}" if caused else ""))
 
 
 if __name__ == "__main__":
