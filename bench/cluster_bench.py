@@ -37,15 +37,25 @@ os.environ["PYTHONPATH"] = os.pathsep.join(p for p in (str(ROOT), os.environ.get
 
 from handmade import handmade_tools  # noqa: E402
 
+from runner import settings  # noqa: E402
 from runner.cluster import ClusterOptions, answer_on_workers  # noqa: E402
 from runner.runloop import RunOptions  # noqa: E402
 
 
+REAL_MODELS = (settings.home() / "models").resolve()
+
+
 def one_run(workers: int, queue: Path, tmp: Path, tools: list) -> dict:
     out = tmp / f"answers-{workers}.jsonl"
+    # each run in a JIGWRIGHT_HOME of its own (the models linked in), with patterns off: neither run may reuse the
+    # warm states or pattern books the other one made, so both do the same model work
+    home = tmp / f"home-{workers}"
+    home.mkdir()
+    (home / "models").symlink_to(REAL_MODELS, target_is_directory=True)
+    os.environ["JIGWRIGHT_HOME"] = str(home)
     load_before = os.getloadavg()[0]
     t0 = time.perf_counter()
-    report = answer_on_workers(str(queue), out, RunOptions(fallback="executor"),
+    report = answer_on_workers(str(queue), out, RunOptions(fallback="executor", patterns=False),
                                ClusterOptions(workers=workers, threads=1), tools=tools)
     total_wall = time.perf_counter() - t0
     records = [json.loads(line) for line in out.read_text().splitlines()]
