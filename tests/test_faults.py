@@ -42,7 +42,8 @@ def test_sigkill_at_random_points_over_twenty_runs_answers_every_id_exactly_once
     n = 12
     q = write_queue(tmp_path / "q.jsonl", queue_of(n))
     out = tmp_path / "answers.jsonl"
-    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    (tmp_path / "home").mkdir()  # the runs' own JIGWRIGHT_HOME, never the person's
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "JIGWRIGHT_HOME": str(tmp_path / "home")}
     killed = 0
     for attempt in range(20):
         mode = "group" if attempt % 2 == 0 else "plain"
