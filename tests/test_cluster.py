@@ -111,6 +111,14 @@ def test_a_task_that_kills_every_worker_gets_an_error_record(local_ray, tmp_path
     assert report.tasks == 1
 
 
+def own_home_env(tmp_path: Path) -> dict[str, str]:
+    """The environment for a run in a subprocess: a JIGWRIGHT_HOME of its own under tmp_path, whatever an earlier
+    test or fixture set."""
+    home = tmp_path / "home"
+    home.mkdir()
+    return {**os.environ, "JIGWRIGHT_HOME": str(home)}
+
+
 def _descendants(pid: int) -> set[int]:
     """Process ids started (directly or not) by `pid`, from /proc."""
     children: dict[int, list[int]] = {}
@@ -147,9 +155,7 @@ def test_a_driver_killed_with_sigkill_resumes_on_rerun(tmp_path):
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "out.jsonl"
     cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
-    home = tmp_path / "home"  # its own JIGWRIGHT_HOME, whatever an earlier test or fixture set
-    home.mkdir()
-    env = {**os.environ, "JIGWRIGHT_HOME": str(home)}
+    env = own_home_env(tmp_path)
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, env=env)
     started: set[int] = set()
     try:
@@ -272,9 +278,7 @@ def test_ctrl_c_finishes_the_tasks_in_hand_and_a_rerun_completes(tmp_path):
     q = write_queue(tmp_path / "q.jsonl", tasks)
     out = tmp_path / "out.jsonl"
     cmd = [sys.executable, str(TESTS / "cluster_target.py"), str(q), str(out)]
-    home = tmp_path / "home"  # its own JIGWRIGHT_HOME, whatever an earlier test or fixture set
-    home.mkdir()
-    env = {**os.environ, "JIGWRIGHT_HOME": str(home)}
+    env = own_home_env(tmp_path)
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True, start_new_session=True,
                             env=env)
     try:
