@@ -146,6 +146,14 @@ def render(results: list[dict], meta: dict, split: dict[str, str]) -> str:
         good = sum(1 for t in tests if t["right"] >= 0.95 * t["n"])
         lines.append(f"{half or 'all':<7} verified {ok}/{len(rs)} ({ok / len(rs):.0%}); right on >= 95% of "
                      f"test tasks: {good}/{len(tests)}")
+    spent: dict[str, float] = {}
+    for r in results:
+        for step, s in r.get("steps", {}).items():
+            spent[step] = spent.get(step, 0.0) + s.get("builder_cpu", 0.0) + s.get("executor_cpu", 0.0)
+    total = sum(spent.values())
+    if total:
+        lines.append(f"CPU by step over all builds ({total / 60:.0f} min): " + ", ".join(
+            f"{step} {cpu / total:.0%}" for step, cpu in spent.items() if cpu / total >= 0.005))
     lines += ["", "Verified share against the CPU budget per build, from the one run above:",
               "sampling is seeded, so a smaller budget is a prefix of the same run; a build",
               "counts at B when it first verified within B CPU minutes."]
