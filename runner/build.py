@@ -31,7 +31,7 @@ STEPS = ("shape", "draft", "repair", "verify", "card")
 # a probe input is a guess near the family's domain: a candidate that runs long on it just does not count
 PROBE_LIMITS = Limits(cpu_seconds=0.5, wall_seconds=2.0)
 STRATEGIES = ("direct", "search", "choose", "simulate", "permute")
-TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "draft_system.j2", "draft.j2",
+TEMPLATES = ("shape_system.j2", "shape_demo.j2", "shape_user.j2", "shape_feedback.j2", "draft_system.j2", "draft.j2",
              "strategy_direct.j2", "strategy_search.j2", "strategy_choose.j2", "strategy_permute.j2",
              "strategy_simulate.j2", "repair.j2", "executor_fill.j2", "hints.j2")
 # The choose strategy's solve: try each value found at the answer's place in the arguments (a path such as
@@ -189,9 +189,11 @@ class BuildSettings(BaseModel):
     draft_examples: int = 3
     choose_examples: int = 3
     shape_samples: int = 4
+    shape_feedback: int = 1  # times a design with problems is sent back with them, in the same conversation
     draft_samples: int = 3
     repair_rounds: int = 1
     repairs_per_strategy: int = 2
+    choose_repairs: int = 1  # candidates per strategy and design repaired with the choose examples they miss
     temperature: float = 0.7
     seed: int = 0
     strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
@@ -375,6 +377,41 @@ def _answer_type(answers: list[Any]) -> str:
     return "the same JSON type as the examples"
 
 
+_CLOCK = re.compile(r"\d{1,2}:\d{2}")
+_CLOCK_RANGE = re.compile(r"\d{1,2}:\d{2}\s*-\s*\d{1,2}:\d{2}")
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+_DECIMAL = re.compile(r"-?\d+\.\d+")
+
+
+def reading_notes(objects: list[dict[str, Any]], answers: list[Any]) -> list[str]:
+    """How to read the text values the arguments hold, and write the answer, where they follow a common written
+    form (clock times, ranges of them, ISO dates, numbers written as text): one line each, for the draft prompt.
+    Drafts on the tuning half kept calling int() on "08:30"."""
+    texts = [v for o in objects for _, v in shapecheck.value_paths(o) if isinstance(v, str)]
+    notes = []
+    if any(_CLOCK_RANGE.fullmatch(t.strip()) for t in texts):
+        notes.append('A value like "09:00-18:00" is two clock times joined by "-": '
+                     'start, end = value.split("-").')
+    if any(_CLOCK.fullmatch(t.strip()) or _CLOCK_RANGE.fullmatch(t.strip()) for t in texts):
+        notes.append('A clock time "HH:MM" is text: its minutes after midnight are '
+                     'int(t.split(":")[0]) * 60 + int(t.split(":")[1]).')
+    if any(_ISO_DATE.fullmatch(t.strip()) for t in texts):
+        notes.append('A date "YYYY-MM-DD" is text: datetime.date.fromisoformat(d) reads it; add days with '
+                     'datetime.timedelta(days=n).')
+    if any(_DECIMAL.fullmatch(t.strip()) for t in texts):
+        notes.append('A number written as text ("12.50") must be read with float() before computing.')
+    if answers and all(isinstance(a, str) and _CLOCK.fullmatch(a) for a in answers):
+        notes.append('Write the answer m minutes after midnight as f"{m // 60:02d}:{m % 60:02d}".')
+    elif answers and all(isinstance(a, str) and _ISO_DATE.fullmatch(a) for a in answers):
+        notes.append("Write a date answer as d.isoformat().")
+    elif answers and all(isinstance(a, str) and _DECIMAL.fullmatch(a) for a in answers):
+        places = {len(a.split(".")[1]) for a in answers}
+        if len(places) == 1:
+            n = places.pop()
+            notes.append(f'The answer is a number written as text with exactly {n} decimal(s), like {answers[0]!r}.')
+    return notes
+
+
 def applicable_strategies(wanted: list[str], objects: list[dict[str, Any]], answers: list[Any]) -> list[str]:
     """Strategies that fit the data: search needs whole-number answers; choose needs a text answer found at one
     place in the arguments; permute needs a list and answers that are names read off an arrangement; simulate
@@ -477,16 +514,46 @@ class BudgetExhausted(Exception):
     pass
 
 
+def _answer_key(example: Example) -> str:
+    answer = example.answer.strip().lower() if isinstance(example.answer, str) else example.answer
+    return json.dumps(answer, sort_keys=True)
+
+
+def spread(examples: list[Example], n: int) -> list[Example]:
+    """n of the examples, in file order, covering as many different answers as they can: the first example of
+    each answer not yet taken, then the rest in file order. Three drafting examples that all answer "no" let
+    `return "no"` pass them (a build on the tuning half spent its budget on such drafts)."""
+    picked: list[int] = []
+    seen: set[str] = set()
+    for i, ex in enumerate(examples):
+        if len(picked) < n and _answer_key(ex) not in seen:
+            picked.append(i)
+            seen.add(_answer_key(ex))
+    picked += [i for i in range(len(examples)) if i not in picked][: n - len(picked)]
+    return [examples[i] for i in sorted(picked)]
+
+
 def split_examples(examples: list[Example], draft_n: int, choose_n: int
                    ) -> tuple[list[Example], list[Example], list[Example], str]:
-    """The examples in three parts, in file order: draft (shown to the builder), choose (pick among candidates)
-    and confirm (only a candidate that also passes these is verified). With too few examples for three parts
-    the choose examples also confirm, and the note says the check is weaker."""
+    """The examples in three parts: draft (shown to the builder), choose (pick among candidates, and tell a
+    repair where a candidate goes wrong) and confirm (only a candidate that also passes these is verified; they
+    take no part in making or picking it). Each part is taken in file order; where the answers come from a small
+    set (at most half as many different answers as examples), each part prefers examples whose answer it does
+    not hold yet (`spread`). With too few examples for three parts the choose examples also
+    confirm, and the note says the check is weaker."""
     d = min(draft_n, len(examples) - 1)
-    draft, rest = examples[:d], examples[d:]
+    # only where answers come from a small set (yes/no, a few names): elsewhere a repeat is chance
+    few = len({_answer_key(e) for e in examples}) * 2 <= len(examples)
+    if not few:
+        spread_ = lambda part, n: part[:n]  # noqa: E731
+    else:
+        spread_ = spread
+    draft = spread_(examples, d)
+    rest = [e for e in examples if not any(e is x for x in draft)]
     if len(rest) >= 4:
         c = min(choose_n, len(rest) // 2)
-        choose, confirm = rest[:c], rest[c:]
+        choose = spread_(rest, c)
+        confirm = [e for e in rest if not any(e is x for x in choose)]
         note = "" if c >= 3 and len(confirm) >= 3 else (
             f"weaker check: {len(choose)} example(s) chose among candidates and {len(confirm)} confirmed "
             f"(9 examples give 3 to draft, 3 to choose and 3 to confirm)")
@@ -575,8 +642,9 @@ class Builder:
 
     def shapes(self, round_: int = 0) -> Iterator[ShapeCandidate]:
         """Sampled argument designs, mechanically repaired (pieces joined, extra fields dropped, keys that name
-        one field differently unified, values written as words read as numbers) and checked. Proposals with no
-        problem are yielded as they come; once this round's samples are drawn, those with only soft problems
+        one field differently unified, values written as words read as numbers) and checked. A proposal with
+        problems goes back to the builder with them, in the same conversation (`shape_feedback` times), and the
+        answer is checked again. Proposals with no problem are yielded as they come; once this round's samples are drawn, those with only soft problems
         follow, fewest problems first. A design seen in an earlier round is not yielded again.
 
         No grammar here. `bench/shape_grammar.py` (3 shape replies each way) measured a free-form JSON grammar at
@@ -585,48 +653,68 @@ class Builder:
         is left for a measurement on the tuning half (working_days is a check family)."""
         msgs = self.shape_messages()
         budget = 100 + sum(len(e.question) for e in self.drafting)  # JSON of times and dates runs long
-        questions = [e.question for e in self.drafting]
-        answers = [e.answer for e in self.drafting]
         soft: list[tuple[int, int, ShapeCandidate]] = []
         n = self.settings.shape_samples
         for i in range(n):
             label = f"{round_ * n + i + 1}"
             self.progress("shape", f"sample {label}" + (f" (round {round_ + 1})" if round_ else f"/{n}"))
             temp = 0.2 if (i == 0 and round_ == 0) else self.settings.temperature
-            text = self._ask_builder("shape", msgs, temperature=temp, max_tokens=budget)
-            self.report.steps["shape"].tried += 1
-            objects = parse_arguments_reply(text)
-            if objects is None:
-                self.report.failures.append(f"shape {label}: reply is not the expected JSON")
-                continue
-            objects = shapecheck.merge_pieces(len(questions), objects)
-            objects = shapecheck.unify_keys(objects)
-            raw, converted, conversions = readwords.convert_objects(objects)
-            checked_questions = readwords.convert_questions(questions, raw, converted)
-            converted = shapecheck.prune_extras(checked_questions, answers, converted)
-            if conversions:  # the fields pruned from the converted objects go from the copies as written too
-                raw = [{k: v for k, v in r.items() if k in c} for r, c in zip(raw, converted)]
-                conversions = readwords.declared_conversions(raw)
-            else:
-                raw = converted
-            sig = json.dumps(converted, sort_keys=True)
-            if sig in self._seen_shapes:
-                continue
-            self._seen_shapes.add(sig)
-            problems = shapecheck.shape_problems(checked_questions, answers, converted)
-            self.trace({"step": "shape-check", "arguments": converted, "conversions": conversions,
-                        "problems": problems})
-            if problems:
-                self.report.failures.append(f"shape {label}: " + "; ".join(problems[:3]))
-                if not any(shapecheck.is_hard(p) for p in problems):
-                    soft.append((len(problems), i, self.shape_candidate(converted, [f"{len(problems)} soft"],
-                                                                        raw, conversions)))
-                continue
-            self.report.steps["shape"].passed += 1
-            yield self.shape_candidate(converted, [], raw, conversions)
+            conversation = list(msgs)
+            for attempt in range(1 + self.settings.shape_feedback):
+                text = self._ask_builder("shape", conversation, temperature=temp, max_tokens=budget)
+                self.report.steps["shape"].tried += 1
+                read = self.read_shape(text)
+                if read is None:
+                    self.report.failures.append(f"shape {label}: reply is not the expected JSON")
+                    problems = ['the reply must be JSON of the form {"arguments": [one object per question]}']
+                else:
+                    converted, raw, conversions, problems = read
+                    sig = json.dumps(converted, sort_keys=True)
+                    if sig in self._seen_shapes:
+                        break
+                    self._seen_shapes.add(sig)
+                    self.trace({"step": "shape-check", "arguments": converted, "conversions": conversions,
+                                "problems": problems, "attempt": attempt})
+                    if not problems:
+                        self.report.steps["shape"].passed += 1
+                        yield self.shape_candidate(converted, [], raw, conversions)
+                        break
+                    self.report.failures.append(f"shape {label}: " + "; ".join(problems[:3]))
+                    if not any(shapecheck.is_hard(p) for p in problems):
+                        soft.append((len(problems), i, self.shape_candidate(converted, [f"{len(problems)} soft"],
+                                                                            raw, conversions)))
+                # the same conversation again, told exactly what the checks found (a tuning-half build proposed
+                # four designs that each left out the slot length, and drafted from them in vain)
+                conversation = conversation + [
+                    {"role": "assistant", "content": text},
+                    {"role": "user", "content": prompts.render("shape_feedback.j2", problems=problems[:8],
+                                                               count=len(self.drafting))}]
+                if attempt < self.settings.shape_feedback:
+                    self.progress("shape", f"sample {label}: asking again with {len(problems)} problem(s)")
         for n_problems, i, cand in sorted(soft, key=lambda t: (t[0], t[1])):
             self.progress("shape", f"trying a design despite {n_problems} soft problem(s)")
             yield cand
+
+    def read_shape(self, text: str) -> tuple[list[Any], list[Any], dict[str, str], list[str]] | None:
+        """A shape reply read and mechanically repaired (pieces joined, keys unified, words read as numbers,
+        extra fields dropped): (argument objects, as written, declared conversions, problems), or None when
+        the reply holds no argument list."""
+        questions = [e.question for e in self.drafting]
+        answers = [e.answer for e in self.drafting]
+        objects = parse_arguments_reply(text)
+        if objects is None:
+            return None
+        objects = shapecheck.merge_pieces(len(questions), objects)
+        objects = shapecheck.unify_keys(objects)
+        raw, converted, conversions = readwords.convert_objects(objects)
+        checked_questions = readwords.convert_questions(questions, raw, converted)
+        converted = shapecheck.prune_extras(checked_questions, answers, converted)
+        if conversions:  # the fields pruned from the converted objects go from the copies as written too
+            raw = [{k: v for k, v in r.items() if k in c} for r, c in zip(raw, converted)]
+            conversions = readwords.declared_conversions(raw)
+        else:
+            raw = converted
+        return converted, raw, conversions, shapecheck.shape_problems(checked_questions, answers, converted)
 
     def shape_candidate(self, objects: list[dict[str, Any]], problems: list[str],
                         raw: list[dict[str, Any]] | None = None,
@@ -647,7 +735,8 @@ class Builder:
                               schema=shape.schema,
                               examples=examples, strategy=strategy, signature=_signature(shape.schema),
                               answer_type=_answer_type([e.answer for e in self.drafting]),
-                              answer_from=shape.answer_from)
+                              answer_from=shape.answer_from,
+                              reading=reading_notes(shape.objects, [e.answer for e in self.drafting]))
         return [{"role": "system", "content": prompts.render("draft_system.j2")},
                 {"role": "user", "content": user}]
 
@@ -718,6 +807,40 @@ class Builder:
             if fixed.draft_ok == len(self.drafting):
                 self.report.steps["repair"].passed += 1
                 break
+        return fixed
+
+    def choose_feedback(self, cand: Candidate) -> str:
+        """The choose examples a candidate got wrong, as exact feedback: the question, the arguments the
+        executor filled from it, what the function returned and what it must return. Misses whose arguments look
+        like the executor's fault are left out (they would send a repair after a mistake the code did not make)."""
+        lines = []
+        for ex, check in zip(self.choosing, [c for c in cand.checks if c.split == "choose"]):
+            if check.ok or check.arguments is None or fill_suspect(ex, check.arguments):
+                continue
+            call = f"solve(**{json.dumps(check.arguments, ensure_ascii=False)})"
+            got = f"failed: {check.error}" if check.error else f"returned {check.got!r}"
+            lines.append(f"Question: {ex.question}\n{call} must return {ex.answer!r} but {got}.")
+        return "\n".join(lines)
+
+    def repair_after_choose(self, cand: Candidate, shape: ShapeCandidate) -> Candidate | None:
+        """One repair of a candidate that passed its drafting examples but not every choose example, told which
+        further questions it gets wrong (the choose examples thereby also shape candidates; the confirm
+        examples still take no part). None when no miss can be told."""
+        feedback = self.choose_feedback(cand) if not self.shared_check else ""
+        if not feedback:  # with few examples the choose examples also confirm: they must stay out of repairs
+            return None
+        self.progress("repair", f"{cand.strategy}: fixing what the choose examples found")
+        text = ("It passes those examples but gives wrong answers on other questions of the same kind:\n"
+                + feedback + "\nThe solved examples above must still pass.")
+        msgs = cand.messages + [{"role": "assistant", "content": cand.reply},
+                                {"role": "user", "content": prompts.render("repair.j2", feedback=text)}]
+        reply = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
+        fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, reply, shape), messages=msgs,
+                          reply=reply)
+        self.check_on_drafting(fixed, shape)
+        self.report.steps["repair"].tried += 1
+        if fixed.draft_ok == len(self.drafting):
+            self.report.steps["repair"].passed += 1
         return fixed
 
     # -- verify: choose among candidates, then confirm
@@ -811,22 +934,37 @@ class Builder:
                                             if failing and failing[0].feedback else f"{strategy}: no candidates")
                 continue
             self.passing += [(c, shape) for c in _dedupe(passing)]
-            for c in _dedupe(passing):
-                if c.code in self._verified_codes:
-                    continue
-                self._verified_codes.add(c.code)
-                self.verify(c, shape, card)
-                self._reach(c.failed_at or "confirm")
-                if not best or c.sort_key < best[0][0].sort_key:
-                    best[:] = [(c, shape, card)]
-                if not c.failed_at:
-                    return True
+            if self.verify_all(_dedupe(passing), shape, card, best):
+                return True
+            # the closest candidate that failed on choose examples (not on the executor's fills) is told its
+            # misses and repaired once; it must pass its drafting examples again, then choose and confirm
+            near = sorted((c for c in _dedupe(passing) if c.failed_at == "choose"), key=lambda c: c.sort_key)
+            for c in near[: self.settings.choose_repairs]:
+                fixed = self.repair_after_choose(c, shape)
+                if fixed is not None and fixed.draft_ok == n:
+                    self.passing.append((fixed, shape))
+                    if self.verify_all([fixed], shape, card, best):
+                        return True
             if best:
                 bad = [ch for ch in best[0][0].checks if not ch.ok]
                 if bad:
                     self.report.failures.append(
                         f"{strategy}: {bad[0].split} {best[0][0].score:.2f}; e.g. {bad[0].id}: expected "
                         f"{bad[0].expected!r}, got {bad[0].got!r} {bad[0].error or ''}".strip())
+        return False
+
+    def verify_all(self, cands: list[Candidate], shape: ShapeCandidate, card: Card, best: list) -> bool:
+        """Verify each candidate not verified before; `best` keeps the best so far. True once one verifies."""
+        for c in cands:
+            if c.code in self._verified_codes:
+                continue
+            self._verified_codes.add(c.code)
+            self.verify(c, shape, card)
+            self._reach(c.failed_at or "confirm")
+            if not best or c.sort_key < best[0][0].sort_key:
+                best[:] = [(c, shape, card)]
+            if not c.failed_at:
+                return True
         return False
 
     _ORDER = ("shape", "draft", "repair", "fill", "choose", "confirm")

@@ -57,6 +57,8 @@ def builder_script(shapes: list[str], drafts: list[str], repairs: list[str] | No
     def reply(messages, **kw):
         last = messages[-1]["content"]
         if messages[0]["content"].startswith("You design the arguments"):
+            if last.startswith("The checks found") and not shapes:
+                return messages[-2]["content"]  # told the problems, it repeats itself
             return shapes.pop(0)
         if last.startswith("That function is wrong"):
             return repairs.pop(0)
@@ -109,14 +111,16 @@ def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
     mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
     builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(mixed)], []))
     with ToolStore(tmp_path / "store") as store:
-        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 shape_feedback=0)
         assert tool is None and not report.verified
         assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 0
         text = " ".join(report.failures)
         assert "answer appears in the arguments" in text and "do not share one shape" in text
         assert store.names() == []
         calls = len(builder.calls)
-        again, report2 = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()))
+        again, report2 = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                   shape_feedback=0)
         assert again is None and report2.cache_hit and not report2.verified and len(builder.calls) == calls
         assert report2.failures == report.failures
 
@@ -135,7 +139,7 @@ def test_soft_shape_problems_rank_lower_but_are_still_tried(family, sandbox, tmp
     builder = ScriptedModel("builder", script)
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
-                                 strategies=["direct"])
+                                 strategies=["direct"], shape_feedback=0)
     assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 1
     assert any("Puffin missing" in f for f in report.failures)
     assert tool is not None and tool.verified
@@ -144,9 +148,46 @@ def test_soft_shape_problems_rank_lower_but_are_still_tried(family, sandbox, tmp
     only_soft = ScriptedModel("builder", builder_script([shape_reply(dropped)] * 2, [GOOD.replace("boat, ", "")]))
     with ToolStore(tmp_path / "store2") as store:
         tool, report = run_build(family, sandbox, store, only_soft, ScriptedModel("executor", executor_script()),
-                                 strategies=["direct"])
+                                 strategies=["direct"], shape_feedback=0)
     assert report.steps["shape"].passed == 0
     assert tool is not None and "boat" not in tool.card.schema_["properties"]
+
+
+def test_a_design_with_problems_goes_back_with_them_and_the_answer_is_checked_again(family, sandbox, tmp_path):
+    objects = [a for _, _, a in FEES[:3]]
+    dropped = [{k: v for k, v in o.items() if k != "boat"} for o in objects]
+    told = []
+
+    def script(messages, **kw):
+        if messages[0]["content"].startswith("You design the arguments"):
+            if messages[-1]["content"].startswith("The checks found"):
+                told.append((messages[-2]["content"], messages[-1]["content"]))
+                return shape_reply(objects)
+            return shape_reply(dropped)
+        return GOOD
+
+    builder = ScriptedModel("builder", script)
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
+                                 strategies=["direct"], shape_samples=1)
+    assert len(told) == 1 and told[0][0] == shape_reply(dropped)  # its own reply, then the problems found in it
+    assert "- question 1: puffin missing" in told[0][1].lower() and "for all 3 questions" in told[0][1]
+    assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 1
+    assert tool is not None and tool.verified and "boat" in tool.card.schema_["properties"]
+
+
+def test_answers_from_a_small_set_are_spread_over_the_parts():
+    def ex(i, answer):
+        return B.Example(id=f"e{i}", question=f"q{i}", answer=answer)
+
+    yes_no = [ex(i, a) for i, a in enumerate(["no", "no", "no", "yes", "Yes", "no", "no", "yes", "yes"])]
+    draft, choose, confirm, note = B.split_examples(yes_no, 3, 3)
+    assert [e.id for e in draft] == ["e0", "e1", "e3"]  # a "no" and a "yes" among the drafting examples
+    assert [e.id for e in choose] == ["e2", "e4", "e5"] and [e.id for e in confirm] == ["e6", "e7", "e8"]
+    assert note == ""
+    numbers = [ex(i, a) for i, a in enumerate([36, 36, 35, 30, 66, 12, 8, 9, 10])]  # a repeat here is chance
+    draft, choose, confirm, _ = B.split_examples(numbers, 3, 3)
+    assert [e.id for e in draft + choose + confirm] == [f"e{i}" for i in range(9)]
 
 
 def test_failing_draft_goes_to_repair_with_exact_feedback(family, sandbox, tmp_path):
@@ -380,7 +421,7 @@ def test_with_a_budget_the_build_samples_on_after_a_round_finds_nothing(family, 
     builder = ScriptedModel("builder", builder_script(shapes, [WRONG] + [GOOD] * 9, [WRONG] * 9))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
-                                 strategies=["direct"], budget_cpu_minutes=100)
+                                 strategies=["direct"], budget_cpu_minutes=100, shape_feedback=0)
     assert tool is not None and tool.verified
     # round 1: two unusable shapes; round 2: a good shape whose draft fails, repaired in vain; round 3: the
     # design found in round 2 gets new drafts (after that round's new shape samples), and one verifies
@@ -391,7 +432,7 @@ def test_with_a_budget_the_build_samples_on_after_a_round_finds_nothing(family, 
     never = ScriptedModel("builder", builder_script([shape_reply(mixed)] * 99, []), cpu_per_completion_token=1.0)
     with ToolStore(tmp_path / "store2") as store:
         tool, report = run_build(family, sandbox, store, never, ScriptedModel("executor", executor_script()),
-                                 budget_cpu_minutes=3.0)
+                                 budget_cpu_minutes=3.0, shape_feedback=0)
     assert tool is None and "budget" in report.stopped and report.failed_at == "shape"
     assert report.steps["shape"].tried > 2 and report.rounds > 1
 
@@ -458,3 +499,36 @@ def test_a_failure_under_a_small_budget_is_not_reused_for_a_larger_one(family, s
         tool, report3 = run_build(family, sandbox, store, larger, ScriptedModel("executor", executor_script()),
                                   strategies=["direct"], budget_cpu_minutes=5)
         assert not report3.cache_hit and tool is not None and tool.verified
+
+
+def test_a_candidate_that_misses_choose_examples_is_repaired_with_them_but_never_with_confirm_ones(sandbox, tmp_path):
+    rows = [(f"Slipway fee for the {boat}: {length} metres at {rate} coins a metre?", length * rate,
+             {"boat": boat, "length": length, "rate": rate})
+            for boat, length, rate in [("Puffin", 12, 3), ("Gannet", 9, 4), ("Tern", 7, 5), ("Skua", 15, 2),
+                                       ("Eider", 11, 6), ("Shag", 20, 2), ("Merlin", 8, 7), ("Dunlin", 18, 3),
+                                       ("Knot", 25, 4)]]
+    f = tmp_path / "fees9.jsonl"
+    f.write_text("".join(json.dumps({"id": f"g{i}", "question": q, "answer": a}) + "\n"
+                         for i, (q, a, _) in enumerate(rows)))
+    family = B.load_family(f, name="slipway-fees", description="the slipway fee of one boat")
+    short = "```python\ndef solve(boat, length, rate):\n    return length * rate if length <= 12 else 0\n```"
+    told = []
+
+    def script(messages, **kw):
+        if messages[0]["content"].startswith("You design the arguments"):
+            return shape_reply([a for _, _, a in rows[:3]])
+        if messages[-1]["content"].startswith("That function is wrong"):
+            told.append(messages[-1]["content"])
+            return GOOD
+        return short
+
+    table = {q: a for q, _, a in rows}
+    executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
+    with ToolStore(tmp_path / "store") as store:
+        tool, report = run_build(family, sandbox, store, ScriptedModel("builder", script), executor,
+                                 strategies=["direct"], shape_samples=1)
+    assert tool is not None and tool.verified and "length * rate\n" in tool.code
+    assert len(told) == 1 and "other questions of the same kind" in told[0]
+    assert "Skua" in told[0] and "Shag" in told[0]  # choose examples (g3-g5) the short draft gets wrong
+    assert not any(boat in told[0] for boat in ("Merlin", "Dunlin", "Knot"))  # confirm examples never
+    assert report.roles["confirm"] == ["g6", "g7", "g8"] and report.steps["repair"].tried == 1

@@ -314,7 +314,8 @@ def test_no_tool_fails_every_task_and_the_failed_build_is_not_repeated(tmp_path,
         report = run_eval(tmp_path, [fam], setup_of(executor, builder), sandbox, store,
                           ["split", "executor-direct"], n=4)
         shape_calls = len(builder.calls)
-        assert shape_calls == B.BuildSettings().shape_samples
+        settings = B.BuildSettings()  # each reply is sent back once with its problems
+        assert shape_calls == settings.shape_samples * (1 + settings.shape_feedback)
         r = row(report, "split")
         assert (r.correct, r.unanswered) == (0, 4) and r.flagged and r.note.startswith("NO TOOL")
         assert r.break_even == {} and report.builds[0].tool is None

@@ -58,11 +58,11 @@ def test_hints_change_the_key_only_when_given(tmp_path):
 
 def test_hints_reach_the_shape_and_draft_prompts_verbatim(tmp_path):
     family = B.load_family(family_dir(tmp_path / "a", f"hints = [{json.dumps(HINT)}]\n"))
-    objects = [a for _, _, a in NETS[:3]]
 
     def builder(messages, **kw):
-        if messages[0]["content"].startswith("You design the arguments"):
-            return json.dumps({"arguments": objects})
+        if messages[0]["content"].startswith("You design the arguments"):  # the questions asked, in order
+            asked = sorted((messages[-1]["content"].find(q), a) for q, _, a in NETS if q in messages[-1]["content"])
+            return json.dumps({"arguments": [a for _, a in asked]})
         return "```python\ndef solve(length, spacing):\n    return length // spacing + 1\n```"
 
     def executor(messages, **kw):
