@@ -14,7 +14,7 @@ from . import __version__
 RUNNER_DIR = Path(__file__).resolve().parent
 # Modules (or packages: a folder of that name) whose code decides results, by the kind of result.
 SOURCES = {
-    "build": ("build", "shapecheck", "execute", "sandbox", "llm", "tools", "probe", "forced", "guess", "guided",
+    "build": ("build", "family", "readwords", "shapecheck", "execute", "sandbox", "llm", "tools", "probe", "forced", "guess", "guided",
               "answerform"),
     "eval": ("execute", "sandbox", "llm", "tools", "evaluate", "forced", "guess", "guided", "answerform"),
 }
