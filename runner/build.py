@@ -579,8 +579,8 @@ class Builder:
             yield cand
 
     def read_shape(self, text: str) -> tuple[list[Any], list[Any], dict[str, str], list[str]] | None:
-        """A shape reply read and mechanically repaired (pieces joined, keys unified, words read as numbers,
-        extra fields dropped): (argument objects, as written, declared conversions, problems), or None when
+        """A shape reply read and mechanically repaired (pieces joined, keys unified and made parameter names, words
+        read as numbers, extra fields dropped): (argument objects, as written, declared conversions, problems), or None when
         the reply holds no argument list."""
         questions = [e.question for e in self.drafting]
         answers = [e.answer for e in self.drafting]
@@ -588,7 +588,7 @@ class Builder:
         if objects is None:
             return None
         objects = shapecheck.merge_pieces(len(questions), objects)
-        objects = shapecheck.unify_keys(objects)
+        objects = shapecheck.parameter_keys(shapecheck.unify_keys(objects))
         raw, converted, conversions = readwords.convert_objects(objects)
         checked_questions = readwords.convert_questions(questions, raw, converted)
         converted = shapecheck.prune_extras(checked_questions, answers, converted)

@@ -4,6 +4,7 @@ leaked; and the JSON Schema inferred from argument objects."""
 from __future__ import annotations
 
 import json
+import keyword
 import re
 from typing import Any
 
@@ -412,3 +413,40 @@ def unify_keys(objects: list[Any]) -> list[Any]:
             objects[i][key] = list(objects[i][key])
             objects[i][key][j] = it
     return objects
+
+
+def parameter_name(key: str, taken: set[str]) -> str:
+    """A top-level key as a Python parameter name: snake_case word characters, never a keyword, never starting
+    with a digit or an underscore (the screen refuses those), and not one already taken."""
+    name = re.sub(r"\W+", "_", str(key).strip().lower()).strip("_") or "value"
+    if name[0].isdigit():
+        name = "n_" + name
+    if keyword.iskeyword(name) or keyword.issoftkeyword(name):
+        name += "_value"
+    base, i = name, 2
+    while name in taken:
+        name, i = f"{base}_{i}", i + 1
+    return name
+
+
+def parameter_keys(objects: list[Any]) -> list[Any]:
+    """Mechanical repair: every top-level key becomes a valid Python parameter name (`solve(**arguments)`), the
+    same renaming in every object. A tuning-half design keyed the unreadable digit under "?" and another under
+    " scratched": every draft then failed with a syntax or argument error before it computed anything."""
+    if not all(isinstance(o, dict) for o in objects):
+        return objects
+    keys: list[str] = []
+    for o in objects:
+        keys += [k for k in o if k not in keys]
+    def valid(k: str) -> bool:
+        return k.isidentifier() and not keyword.iskeyword(k) and not k.startswith("_")
+
+    if all(valid(k) for k in keys):
+        return objects
+    taken = {k for k in keys if valid(k)}  # valid names stay as they are
+    rename = {k: k for k in taken}
+    for k in keys:
+        if k not in rename:
+            rename[k] = parameter_name(k, taken)
+            taken.add(rename[k])
+    return [{rename[k]: v for k, v in o.items()} for o in objects]

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import keyword
+
 import jsonschema
 import pytest
 
@@ -171,3 +173,17 @@ def test_a_design_that_leaves_out_most_numbers_is_ruled_out():
               {"entries": [{"boat": "Auk", "boxes": 3, "species": "ling"}, {"boat": "Tern", "boxes": 4, "species": "ling"}],
                "species": "ling"}]
     assert not any("most numbers" in p for p in S.shape_problems(qs, [53, 7], copied))
+
+
+def test_top_level_keys_become_parameter_names_alike_in_every_object():
+    # Python's own rules (the `keyword` module and str.isidentifier) decide what a parameter name may be
+    objects = [{"card": "527?961", "?": "?", "from": "Quay"}, {"card": "10?1", "?": "?", "from": "Slip"}]
+    fixed = S.parameter_keys(objects)
+    assert [list(o) for o in fixed] == [["card", "value", "from_value"]] * 2
+    assert fixed[1] == {"card": "10?1", "value": "?", "from_value": "Slip"}
+    kept = [{"x": 1, "_x": 2, " scratched": 3, "2nd": 4}]
+    assert S.parameter_keys(kept) == [{"x": 1, "x_2": 2, "scratched": 3, "n_2nd": 4}]
+    plain = [{"a": 1}, {"a": 2}]
+    assert S.parameter_keys(plain) is plain
+    for name in ("value", "from_value", "x_2", "scratched", "n_2nd"):
+        assert name.isidentifier() and not keyword.iskeyword(name)
