@@ -173,6 +173,51 @@ def render(results: list[dict], meta: dict, split: dict[str, str]) -> str:
     return "\n".join(lines)
 
 
+def verified_within(r: dict, minutes: float) -> bool:
+    return bool(r.get("verified") and r.get("verified_cpu") is not None and r["verified_cpu"] <= minutes * 60)
+
+
+def compare(before: list[dict], after: list[dict], minutes: float, split: dict[str, str]) -> str:
+    """Per family and per half: verified within `minutes` CPU minutes before and after (a run with a larger
+    budget is read at `minutes`: seeded sampling makes the smaller budget a prefix of it)."""
+    old = {Path(r["folder"]).name: r for r in before if "error" not in r}
+    new = {Path(r["folder"]).name: r for r in after if "error" not in r}
+
+    def cell(r: dict | None) -> str:
+        if r is None:
+            return "not run"
+        return f"yes {r['verified_cpu'] / 60:.1f}" if verified_within(r, minutes) else "no"
+
+    head = f"{'family':<18} {'half':<7} {'before':>10} {'after':>10}"
+    lines = [f"Before and after: verified within {minutes:g} CPU min (CPU min when it verified)", head,
+             "-" * len(head)]
+    names = sorted(set(old) | set(new), key=lambda n: (split.get(n, "~"), n))
+    for name in names:
+        lines.append(f"{name[:18]:<18} {split.get(name, '-'):<7} {cell(old.get(name)):>10} {cell(new.get(name)):>10}")
+    lines.append("")
+    for half in ("tuning", "check"):
+        both = [n for n in names if split.get(n) == half and n in old and n in new]
+        if both:
+            b = sum(verified_within(old[n], minutes) for n in both)
+            a = sum(verified_within(new[n], minutes) for n in both)
+            lines.append(f"{half:<7} verified {b}/{len(both)} before, {a}/{len(both)} after "
+                         f"(families run both times)")
+    return "\n".join(lines)
+
+
+def read_results(files: list[Path]) -> tuple[list[dict], dict]:
+    results: list[dict] = []
+    meta: dict = {}
+    for f in files:
+        try:
+            data = json.loads(f.read_text())
+        except (OSError, ValueError) as exc:
+            sys.exit(f"build_bench: cannot read results from {f}: {exc}")
+        results += data["results"]
+        meta = meta or data["meta"]
+    return results, meta
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("folders", nargs="*", type=Path, help="family folders, or folders of family folders")
@@ -186,7 +231,10 @@ def main() -> None:
     ap.add_argument("--resume", action="store_true", help="keep results already in --out and build the rest")
     ap.add_argument("--traces", help="write each build's trace (JSONL) into this folder")
     ap.add_argument("--first", choices=("check", "tuning"), help="build that half's families first")
-    ap.add_argument("--render", type=Path, help="print the tables from a JSON results file and stop")
+    ap.add_argument("--render", type=Path, nargs="+", help="print the tables from JSON results files (their results "
+                    "together) and stop")
+    ap.add_argument("--before", type=Path, nargs="+", help="with --render: results of an earlier process, "
+                    "compared family by family at the smaller of the two budgets")
     ap.add_argument("--one", type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--trace", type=Path, help=argparse.SUPPRESS)
     args = ap.parse_args()
@@ -195,11 +243,12 @@ def main() -> None:
         print(json.dumps(one(args.one, args.budget, args.seed, args.test_n, args.trace), default=str))
         return
     if args.render:
-        try:
-            data = json.loads(args.render.read_text())
-        except (OSError, ValueError) as exc:
-            sys.exit(f"build_bench: cannot read results from {args.render}: {exc}")
-        print(render(data["results"], data["meta"], split))
+        results, meta = read_results(args.render)
+        print(render(results, meta, split))
+        if args.before:
+            old, old_meta = read_results(args.before)
+            print()
+            print(compare(old, results, min(float(meta["budget"]), float(old_meta["budget"])), split))
         return
     folders = family_dirs(args.folders)
     if not folders:
