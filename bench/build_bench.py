@@ -29,6 +29,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 CURVE = (4, 8, 16)
+# The four changes made from the tuning half's traces on 2026-12-02 (off by default in BuildSettings: the check
+# half did not gain); `--changes` measures the process with them on.
+CHANGES = {"shape_feedback": 1, "choose_repairs": 1, "reading_notes": True, "rule_in_code": True}
 
 
 def family_dirs(folders: list[Path]) -> list[Path]:
@@ -51,7 +54,7 @@ def halves(split_file: Path) -> dict[str, str]:
 
 # ---- one build (runs in a child process) -------------------------------------------------------------------
 
-def one(folder: Path, budget: float, seed: int, test_n: int, trace: Path | None) -> dict:
+def one(folder: Path, budget: float, seed: int, test_n: int, trace: Path | None, changes: bool = False) -> dict:
     """Build one family in this process (JIGWRIGHT_HOME is set by the parent) and answer up to `test_n` of its
     test tasks with the tool the way the run loop does (executor fill, one retry, sandbox; no routing)."""
     sys.path.insert(0, str(ROOT))
@@ -62,7 +65,7 @@ def one(folder: Path, budget: float, seed: int, test_n: int, trace: Path | None)
     from runner.store import ToolStore
 
     family = B.load_family(folder / "examples.jsonl")
-    settings = B.BuildSettings(seed=seed, budget_cpu_minutes=budget)
+    settings = B.BuildSettings(seed=seed, budget_cpu_minutes=budget, **(CHANGES if changes else {}))
     builder, executor = open_model("builder"), open_model("executor")
     fh = open(trace, "w", encoding="utf-8") if trace else None
 
@@ -101,7 +104,8 @@ def run_child(folder: Path, args: argparse.Namespace, models: Path) -> dict:
     env = dict(os.environ, JIGWRIGHT_HOME=str(home), JIGWRIGHT_THREADS=str(args.threads), PYTHONPATH=str(ROOT))
     trace = Path(args.traces) / f"{folder.name}.jsonl" if args.traces else None
     cmd = [sys.executable, str(Path(__file__).resolve()), "--one", str(folder), "--budget", str(args.budget),
-           "--seed", str(args.seed), "--test-n", str(args.test_n)] + (["--trace", str(trace)] if trace else [])
+           "--seed", str(args.seed), "--test-n", str(args.test_n)] + (["--trace", str(trace)] if trace else []) \
+        + (["--changes"] if args.changes else [])
     proc = subprocess.run(cmd, capture_output=True, text=True, env=env, cwd=ROOT)
     lines = [l for l in proc.stdout.splitlines() if l.startswith("{")]
     if proc.returncode != 0 or not lines:
@@ -235,12 +239,14 @@ def main() -> None:
                     "together) and stop")
     ap.add_argument("--before", type=Path, nargs="+", help="with --render: results of an earlier process, "
                     "compared family by family at the smaller of the two budgets")
+    ap.add_argument("--changes", action="store_true", help="build with the tuning-half changes of 2026-12-02 on "
+                    "(shape feedback, choose repairs, reading notes, the rule in the code skeleton)")
     ap.add_argument("--one", type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--trace", type=Path, help=argparse.SUPPRESS)
     args = ap.parse_args()
     split = halves(args.split)
     if args.one:
-        print(json.dumps(one(args.one, args.budget, args.seed, args.test_n, args.trace), default=str))
+        print(json.dumps(one(args.one, args.budget, args.seed, args.test_n, args.trace, args.changes), default=str))
         return
     if args.render:
         results, meta = read_results(args.render)
@@ -261,7 +267,7 @@ def main() -> None:
         sys.exit(f"build_bench: {models} is missing: run `jigwright models fetch` first")
     meta = {"date": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
             "machine": f"{platform.machine()}, {os.cpu_count()} cores", "budget": args.budget, "seed": args.seed,
-            "jobs": args.jobs, "threads": args.threads, "test_n": args.test_n}
+            "jobs": args.jobs, "threads": args.threads, "test_n": args.test_n, "changes": args.changes}
     results: list[dict] = []
     if args.resume and args.out and args.out.exists():
         results = [r for r in json.loads(args.out.read_text())["results"] if "error" not in r]

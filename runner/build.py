@@ -72,11 +72,15 @@ class BuildSettings(BaseModel):
     draft_examples: int = 3
     choose_examples: int = 3
     shape_samples: int = 4
-    shape_feedback: int = 1  # times a design with problems is sent back with them, in the same conversation
+    # Four changes made from the tuning half's traces (docs/architecture.md): off by default, since the bench of
+    # 2026-12-02 showed no gain on the check half; `bench/build_bench.py --changes` turns them on.
+    shape_feedback: int = 0  # times a design with problems is sent back with them, in the same conversation
+    reading_notes: bool = False  # a line on how to read clock times, dates, numbers as text, in the draft prompt
+    rule_in_code: bool = False  # the family's rule repeated as a comment in the direct strategy's skeleton
     draft_samples: int = 3
     repair_rounds: int = 1
     repairs_per_strategy: int = 2
-    choose_repairs: int = 1  # candidates per strategy and design repaired with the choose examples they miss
+    choose_repairs: int = 0  # candidates per strategy and design repaired with the choose examples they miss
     temperature: float = 0.7
     seed: int = 0
     strategies: list[str] = Field(default_factory=lambda: list(STRATEGIES))
@@ -619,7 +623,9 @@ class Builder:
                               examples=examples, strategy=strategy, signature=_signature(shape.schema),
                               answer_type=_answer_type([e.answer for e in self.drafting]),
                               answer_from=shape.answer_from,
-                              reading=reading_notes(shape.objects, [e.answer for e in self.drafting]))
+                              reading=reading_notes(shape.objects, [e.answer for e in self.drafting])
+                              if self.settings.reading_notes else [],
+                              rule_in_code=self.settings.rule_in_code)
         return [{"role": "system", "content": prompts.render("draft_system.j2")},
                 {"role": "user", "content": user}]
 

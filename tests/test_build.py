@@ -169,7 +169,7 @@ def test_a_design_with_problems_goes_back_with_them_and_the_answer_is_checked_ag
     builder = ScriptedModel("builder", script)
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
-                                 strategies=["direct"], shape_samples=1)
+                                 strategies=["direct"], shape_samples=1, shape_feedback=1)
     assert len(told) == 1 and told[0][0] == shape_reply(dropped)  # its own reply, then the problems found in it
     assert "- question 1: puffin missing" in told[0][1].lower() and "for all 3 questions" in told[0][1]
     assert report.steps["shape"].tried == 2 and report.steps["shape"].passed == 1
@@ -526,7 +526,7 @@ def test_a_candidate_that_misses_choose_examples_is_repaired_with_them_but_never
     executor = ScriptedModel("executor", lambda messages, **kw: json.dumps(table[messages[-1]["content"]]))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, ScriptedModel("builder", script), executor,
-                                 strategies=["direct"], shape_samples=1)
+                                 strategies=["direct"], shape_samples=1, choose_repairs=1)
     assert tool is not None and tool.verified and "length * rate\n" in tool.code
     assert len(told) == 1 and "other questions of the same kind" in told[0]
     assert "Skua" in told[0] and "Shag" in told[0]  # choose examples (g3-g5) the short draft gets wrong
