@@ -431,10 +431,7 @@ def split_examples(examples: list[Example], draft_n: int, choose_n: int
     d = min(draft_n, len(examples) - 1)
     # only where answers come from a small set (yes/no, a few names): elsewhere a repeat is chance
     few = len({_answer_key(e) for e in examples}) * 2 <= len(examples)
-    if not few:
-        spread_ = lambda part, n: part[:n]  # noqa: E731
-    else:
-        spread_ = spread
+    spread_ = spread if few else (lambda part, n: part[:n])
     draft = spread_(examples, d)
     rest = [e for e in examples if not any(e is x for x in draft)]
     if len(rest) >= 4:
@@ -686,16 +683,23 @@ class Builder:
         fixed = cand
         for r in range(self.settings.repair_rounds):
             self.progress("repair", f"{cand.strategy} round {r + 1}/{self.settings.repair_rounds}")
-            msgs = fixed.messages + [{"role": "assistant", "content": fixed.reply},
-                                     {"role": "user", "content": prompts.render("repair.j2", feedback=fixed.feedback)}]
-            text = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
-            fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, text, shape), messages=msgs,
-                              reply=text)
-            self.check_on_drafting(fixed, shape)
-            self.report.steps["repair"].tried += 1
+            fixed = self.repair_once(fixed, shape, fixed.feedback)
             if fixed.draft_ok == len(self.drafting):
-                self.report.steps["repair"].passed += 1
                 break
+        return fixed
+
+    def repair_once(self, cand: Candidate, shape: ShapeCandidate, feedback: str) -> Candidate:
+        """The candidate's conversation, told `feedback`; the reply checked on the drafting examples and counted
+        as a repair."""
+        msgs = cand.messages + [{"role": "assistant", "content": cand.reply},
+                                {"role": "user", "content": prompts.render("repair.j2", feedback=feedback)}]
+        text = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
+        fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, text, shape), messages=msgs,
+                          reply=text)
+        self.check_on_drafting(fixed, shape)
+        self.report.steps["repair"].tried += 1
+        if fixed.draft_ok == len(self.drafting):
+            self.report.steps["repair"].passed += 1
         return fixed
 
     def choose_feedback(self, cand: Candidate) -> str:
@@ -719,18 +723,9 @@ class Builder:
         if not feedback:  # with few examples the choose examples also confirm: they must stay out of repairs
             return None
         self.progress("repair", f"{cand.strategy}: fixing what the choose examples found")
-        text = ("It passes those examples but gives wrong answers on other questions of the same kind:\n"
-                + feedback + "\nThe solved examples above must still pass.")
-        msgs = cand.messages + [{"role": "assistant", "content": cand.reply},
-                                {"role": "user", "content": prompts.render("repair.j2", feedback=text)}]
-        reply = self._ask_builder("repair", msgs, temperature=self.settings.temperature, max_tokens=400)
-        fixed = Candidate(strategy=cand.strategy, code=self.assemble(cand.strategy, reply, shape), messages=msgs,
-                          reply=reply)
-        self.check_on_drafting(fixed, shape)
-        self.report.steps["repair"].tried += 1
-        if fixed.draft_ok == len(self.drafting):
-            self.report.steps["repair"].passed += 1
-        return fixed
+        return self.repair_once(cand, shape, "It passes those examples but gives wrong answers on other questions "
+                                             "of the same kind:\n" + feedback
+                                + "\nThe solved examples above must still pass.")
 
     # -- verify: choose among candidates, then confirm
     def card(self, shape: ShapeCandidate) -> Card:
