@@ -3,9 +3,11 @@ constrained replies, and a usage record (tokens, wall and CPU seconds) for every
 
 from __future__ import annotations
 
+import atexit
 import json
 import os
 import threading
+import weakref
 from typing import Any, Protocol
 
 from pydantic import BaseModel
@@ -56,6 +58,15 @@ def prompt_size(model: Any, messages: list[Message]) -> int | None:
     return count(messages) if callable(count) else None
 
 
+_LOADED: "weakref.WeakSet[LocalModel]" = weakref.WeakSet()
+
+
+@atexit.register
+def _close_loaded() -> None:
+    for model in list(_LOADED):
+        model.close()
+
+
 class LocalModel:
     """A GGUF model loaded on first use; one llama.cpp context reused so shared prompt prefixes stay cached."""
 
@@ -95,7 +106,19 @@ class LocalModel:
                 raise ModelLoadError(f"llama.cpp could not load model '{self.name}' from {path}: {exc}") from exc
         self.load_usage = Usage(wall_seconds=sw.wall_seconds, cpu_seconds=sw.cpu_seconds)
         self._warm = WarmStates(self._llm, self.spec.sha256)
+        _LOADED.add(self)
         return self
+
+    def close(self) -> None:
+        """Free the llama.cpp model and context now (also done for every loaded model at interpreter exit,
+        while the library's own functions still exist: freeing from the garbage collector after that point
+        prints ignored errors)."""
+        llm, self._llm = self._llm, None
+        self._warm = None
+        self._formatter = None
+        self._grammars.clear()
+        if llm is not None:
+            llm.close()
 
     def keep_prefix(self, messages: list[Message], prefix: PromptPrefix) -> Outcome:
         """Ahead of time: make sure a saved state exists for the stable prefix of `messages` (everything before

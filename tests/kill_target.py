@@ -23,7 +23,7 @@ def main() -> None:
     base = scripted(direct="Answer: kept")
 
     def slow(messages, **kw):
-        time.sleep(0.02)
+        time.sleep(0.05)
         return base.replies(messages, **kw)
 
     # patterns off: a learned pattern fills with no model call, and the kills are meant to land mid-run

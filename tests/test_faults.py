@@ -37,9 +37,13 @@ def expected_answer(i: int):
     return 2 * i + 1 if i % 3 else (f"W{i}" if i % 2 else "kept")
 
 
+def count_lines(path: Path) -> int:
+    return len(path.read_bytes().splitlines()) if path.exists() else 0
+
+
 def test_sigkill_at_random_points_over_twenty_runs_answers_every_id_exactly_once(tmp_path):
     rng = random.Random(20261202)
-    n = 12
+    n = 60
     q = write_queue(tmp_path / "q.jsonl", queue_of(n))
     out = tmp_path / "answers.jsonl"
     (tmp_path / "home").mkdir()  # the runs' own JIGWRIGHT_HOME, never the person's
@@ -47,9 +51,17 @@ def test_sigkill_at_random_points_over_twenty_runs_answers_every_id_exactly_once
     killed = 0
     for attempt in range(20):
         mode = "group" if attempt % 2 == 0 else "plain"
+        before = count_lines(out)
         proc = subprocess.Popen([sys.executable, TARGET, str(q), str(out), mode], stdout=subprocess.PIPE,
                                 stderr=subprocess.PIPE, env=env)
-        time.sleep(rng.uniform(0.05, 1.2))  # startup, routing, filling or writing
+        # The kill follows the run's progress, not the clock (a fixed clock let a fast machine finish the queue
+        # before the later runs started): let 0-2 records through, then kill somewhere in the next routing,
+        # filling or writing, or in startup when none are let through.
+        let_through = rng.choice([0, 1, 1, 2])
+        deadline = time.monotonic() + 60
+        while proc.poll() is None and count_lines(out) < before + let_through and time.monotonic() < deadline:
+            time.sleep(0.01)
+        time.sleep(rng.uniform(0.0, 0.25))
         if proc.poll() is None:
             proc.send_signal(signal.SIGKILL)
             killed += 1
