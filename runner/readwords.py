@@ -1,5 +1,6 @@
-"""Declared conversions of values written in words: number words ("eleven"), month names ("March") and dates
-with month names ("29th December 2026", "March 3, 2027") read as numbers and ISO dates.
+"""Declared conversions of values written in words: number words ("eleven"), month names ("March"), dates
+with month names ("29th December 2026", "March 3, 2027") and quantities written with their unit or currency
+sign ("116 gallons", "£13.85", "2.5%") read as numbers and ISO dates.
 
 A shape proposal copies values as the question writes them; where every value at one place in the arguments is
 of one such kind, the build converts them there (the drafts see numbers and YYYY-MM-DD dates), the usage card
@@ -17,7 +18,7 @@ from typing import Any
 
 from .shapecheck import value_paths
 
-KINDS = ("number-word", "month", "month-date")
+KINDS = ("number-word", "month", "month-date", "quantity")
 
 # ---- tool side (copied into tools) -------------------------------------------------------------------------
 # words-begin
@@ -81,6 +82,19 @@ def read_month_date(text):
     return iso_from_match(found) if found else None
 
 
+QUANTITY = r"([£$€]?)\s*(-?\d{1,3}(?:,\d{3})+(?:\.\d+)?|-?\d+(?:\.\d+)?)\s*([A-Za-z%][A-Za-z%.' -]*)?"
+
+
+def read_quantity(text):
+    """'116 gallons' -> 116, '£13.85' -> 13.85, '2.5%' -> 2.5, '1,250 litres' -> 1250: one number with a
+    currency sign before it or a unit after it; None otherwise (a bare number stays text: it may be a code)."""
+    found = re.fullmatch(QUANTITY, text.strip())
+    if not found or not (found.group(1) or found.group(3)):
+        return None
+    digits = found.group(2).replace(",", "")
+    return float(digits) if "." in digits else int(digits)
+
+
 def read_value(value, kind):
     """One value converted by the declared kind; values already converted (or not of that kind) are kept."""
     if not isinstance(value, str):
@@ -89,6 +103,8 @@ def read_value(value, kind):
         got = read_number_word(value)
     elif kind == "month":
         got = read_month(value)
+    elif kind == "quantity":
+        got = read_quantity(value)
     else:
         got = read_month_date(value)
     return value if got is None else got
@@ -123,12 +139,21 @@ def _steps(path: str) -> list[str]:
 
 
 def _reader(kind: str):
-    return {"number-word": read_number_word, "month": read_month, "month-date": read_month_date}[kind]
+    return {"number-word": read_number_word, "month": read_month, "month-date": read_month_date,
+            "quantity": read_quantity}[kind]
+
+
+def quantity_unit(text: str) -> tuple[str, str]:
+    """The currency sign and the last word of the unit of a quantity ('123 imperial gallons' -> ('', 'gallons'))."""
+    found = re.fullmatch(QUANTITY, text.strip())
+    unit = (found.group(3) or "").strip().lower().split() if found else []
+    return (found.group(1) if found else "", unit[-1].rstrip(".") if unit else "")
 
 
 def declared_conversions(objects: list[Any]) -> dict[str, str]:
     """For each place where every string value is of one kind (number word, month name, date with a month
-    name), that kind. Places with any other string are left alone."""
+    name, quantity), that kind. Places with any other string are left alone, and so are quantities whose
+    currency sign or unit differs between values (metres beside feet: the unit is data there)."""
     by_path: dict[str, list[str]] = {}
     for obj in objects:
         for path, text in value_paths(obj):
@@ -138,6 +163,8 @@ def declared_conversions(objects: list[Any]) -> dict[str, str]:
     for path, texts in by_path.items():
         for kind in KINDS:
             if all(_reader(kind)(t) is not None for t in texts):
+                if kind == "quantity" and len({quantity_unit(t) for t in texts}) > 1:
+                    break
                 out[path] = kind
                 break
     return out
@@ -165,6 +192,8 @@ def convert_questions(questions: list[str], raw: list[Any], converted: list[Any]
             q = re.sub(r"\b(?:(?:" + "|".join(WORD_TENS) + r")[- ](?:" + "|".join(list(WORD_UNITS)[1:10])
                        + r")|" + "|".join(list(WORD_TENS) + list(WORD_UNITS)) + r")\b",
                        lambda m: str(read_number_word(m.group(0))), q, flags=re.IGNORECASE)
+        if "quantity" in kinds:  # thousands separators dropped, as the converted numbers have none
+            q = re.sub(r"(?<=\d),(?=\d{3}\b)", "", q)
         if "month" in kinds:
             q = re.sub(r"\b(" + "|".join(n.capitalize() for n in MONTH_NAMES) + r")\b",
                        lambda m: str(read_month(m.group(0))), q)
@@ -186,7 +215,8 @@ def loosen_schema(schema: dict[str, Any], conversions: dict[str, str]) -> dict[s
             continue
         target = parent["items"] if last == "[]" else parent["properties"][last]
         target.clear()
-        target["type"] = "string" if kind == "month-date" else ["integer", "string"]
+        target["type"] = ("string" if kind == "month-date" else ["number", "string"] if kind == "quantity"
+                          else ["integer", "string"])
     return schema
 
 
@@ -201,6 +231,6 @@ def wrap_tool(code: str, conversions: dict[str, str]) -> str:
     conversions first."""
     inner = re.sub(r"^def solve\(", "def solve_converted(", code, flags=re.M)
     inner = re.sub(r"(?<![\w.])solve\(\*\*", "solve_converted(**", inner)
-    return (inner.rstrip() + "\n\n\n# Values written in words are read as numbers and dates (declared by place):\n"
+    return (inner.rstrip() + "\n\n\n# Values written in words or with units are read as numbers and dates (declared by place):\n"
             + f"import re\n\nCONVERSIONS = {conversions!r}\n\n" + tool_source()
             + "\n\ndef solve(**arguments):\n    return solve_converted(**convert_arguments(arguments, CONVERSIONS))\n")

@@ -108,7 +108,7 @@ def test_happy_path_stores_verified_tool_and_second_build_is_cache_hit(family, s
 def test_shape_checks_reject_leaks_and_mixed_shapes(family, sandbox, tmp_path):
     objects = [a for _, _, a in FEES[:3]]
     leaked = [dict(o, boat={"name": o["boat"], "fee": a}) for o, (_, a, _) in zip(objects, FEES)]
-    mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
+    mixed = [objects[0], {"boat": "Gannet", "length": {"metres": 9}, "rate": 4}, objects[2]]
     builder = ScriptedModel("builder", builder_script([shape_reply(leaked), shape_reply(mixed)], []))
     with ToolStore(tmp_path / "store") as store:
         tool, report = run_build(family, sandbox, store, builder, ScriptedModel("executor", executor_script()),
@@ -416,7 +416,7 @@ def test_with_a_budget_the_build_samples_on_after_a_round_finds_nothing(family, 
     """The known failure: every shape of the first round was unusable and the build stopped with most of
     its budget left. Now more rounds follow: more shapes, and more drafts for designs found earlier."""
     objects = [a for _, _, a in FEES[:3]]
-    mixed = [objects[0], {"boat": "Gannet", "length": "9 metres", "rate": 4}, objects[2]]
+    mixed = [objects[0], {"boat": "Gannet", "length": {"metres": 9}, "rate": 4}, objects[2]]
     shapes = [shape_reply(mixed)] * 2 + [shape_reply(objects)] + [shape_reply(mixed)] * 20
     builder = ScriptedModel("builder", builder_script(shapes, [WRONG] + [GOOD] * 9, [WRONG] * 9))
     with ToolStore(tmp_path / "store") as store:

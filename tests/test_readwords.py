@@ -64,3 +64,40 @@ def test_a_conversion_at_a_place_the_schema_lacks_is_skipped():
     schema = {"type": "object", "properties": {"start": {"type": "string", "pattern": "x"}}}
     assert R.loosen_schema(schema, {"gone": "month-date", "start": "month-date"}) == \
         {"type": "object", "properties": {"start": {"type": "string"}}}
+
+
+@pytest.mark.parametrize("text", ["116 gallons", "1,250 litres", "7.5 metres", "-3 kelvin", "9 knots",
+                                  "40 fathoms"])
+def test_quantities_with_a_unit_read_as_pint_reads_their_magnitude(text):
+    import pint  # a reference library for quantities with units
+
+    expected = pint.UnitRegistry().Quantity(text.replace(",", "")).magnitude
+    assert R.read_quantity(text) == expected and type(R.read_quantity(text)) is type(expected)
+
+
+def test_quantities_with_a_currency_sign_or_percent():
+    # common practice: the sign or unit goes, the number stays as written (a decimal point makes it a float)
+    assert R.read_quantity("£13.85") == 13.85 and R.read_quantity("2.5%") == 2.5 and R.read_quantity("$4") == 4
+    # a bare number may be a code (leading zeros, check digits), and two numbers are not one quantity
+    assert R.read_quantity("0042") is None and R.read_quantity("11 fathoms 5 feet") is None
+    assert R.read_quantity("GEAU6884929") is None and R.read_quantity("12:30") is None
+
+
+def test_quantities_are_converted_only_where_sign_and_unit_agree():
+    same = [{"fuel": "116 gallons"}, {"fuel": "191 gallons"}, {"fuel": "123 imperial gallons"}]
+    raw, converted, conv = R.convert_objects(same)
+    assert conv == {"fuel": "quantity"} and [o["fuel"] for o in converted] == [116, 191, 123]
+    assert R.convert_objects([{"d": "3 metres"}, {"d": "12 feet"}])[2] == {}  # the unit is data there
+    assert R.convert_objects([{"d": "£3"}, {"d": "€12"}])[2] == {}
+    assert R.convert_questions(["Bill 1,250 litres at £0.85."], [{"v": "1,250 litres"}], [{"v": 1250}]) == \
+        ["Bill 1250 litres at £0.85."]
+
+
+def test_a_tool_with_a_quantity_conversion_runs_in_the_sandbox():
+    from runner.sandbox import Sandbox
+
+    code = R.wrap_tool("def solve(fuel):\n    return fuel * 2\n", {"fuel": "quantity"})
+    assert screen(code, entry="solve") == []
+    with Sandbox(pool_size=1) as sandbox:
+        result = sandbox.run(code, {"fuel": "£1,250.50"})
+    assert result.ok and result.value == 2501.0
