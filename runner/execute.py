@@ -12,6 +12,7 @@ import jsonschema
 from pydantic import BaseModel
 
 from . import answerform, prompts
+from . import forced as forced_spans
 from .llm import ChatModel, Message
 from .meter import Usage
 from .tools import Card, Tool
@@ -65,7 +66,8 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 # How the executor fills arguments (part of the eval's result key). A greedy fill (the first attempt) whose schema
 # the forced path handles is one pass of `LocalModel.chat_forced`: the spans the schema forces (keys, quotes,
 # separators, closing brackets) and a draft of the values guessed from the question are evaluated in batches,
-# and at every guessed place the model's own best fitting token is kept. Its reply is the free greedy reply
+# and at every guessed place the model's own best fitting token is kept; plain strings that every demo copies
+# whole from its question are held to whole-word pieces of the question (`fill_schema`). Its reply is the free greedy reply
 # when that fits the schema and the grammar's reply otherwise (bench/forced_fill_bench.py compares them on the
 # families' test tasks; bench/split_cost.py measures the CPU per task against builder-direct).
 # Otherwise (a retry at a temperature, a model or schema the forced path does not handle) the fill is asked
@@ -74,7 +76,7 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 # bench/fill_bench.py (one thread, 8 fills each): departures gave the same replies free, 3.5 CPU s per fill
 # against 4.8 s under the grammar (grammar-constrained sampling over the 151k-token vocabulary is the
 # difference); manifest_order's free replies fit the schema in 4 of 8 (labels left unquoted).
-FILL_METHOD = "forced spans when greedy; else free-then-schema, schema after a miss"
+FILL_METHOD = "forced spans and copied strings when greedy; else free-then-schema, schema after a miss"
 _FREE_MISSED: set[str] = set()  # schemas whose free fill has missed once in this process
 FREE_THEN_SCHEMA = "free, then schema"  # the mode of a fill whose free reply missed
 
@@ -110,18 +112,30 @@ def _parse_fill(card: Card, text: str, finish_reason: str) -> tuple[dict[str, An
     return (None, problem) if problem else (args, None)
 
 
+def fill_schema(card: Card, question: str, copy: bool = True) -> dict[str, Any]:
+    """The schema a forced fill of `question` follows: the card's, with every plain string that the card's
+    demos all copy whole from their questions (a code, a name) held to a whole-word piece of this question
+    (`copy` off: the card's schema as it is, for measuring)."""
+    if not copy:
+        return card.schema_
+    paths = forced_spans.copied_paths(card.schema_, [(d.question, d.arguments) for d in card.demos])
+    return forced_spans.copy_schema(card.schema_, paths, question)
+
+
 def fill_arguments(model: ChatModel, card: Card, question: str, *, seed: int, temperature: float = 0.0,
-                   forced: bool = True, keep_state: bool = True) -> Filled:
+                   forced: bool = True, keep_state: bool = True, copy: bool = True) -> Filled:
     """Ask the executor for the argument object of `question`. Greedy fills go through the model's forced path
     when it has one (`chat_forced`) and `forced` is on; otherwise, if the free reply does not fit the card's
     schema, ask again constrained by the schema (the cost of both calls is counted), and from then on ask this
     tool's fills under the schema straight away. `keep_state`: load or save the state of the prompt before
-    the question (off while building, where cards are candidates that may never be kept)."""
+    the question (off while building, where cards are candidates that may never be kept). `copy`: hold copied
+    strings to pieces of the question on the forced path (`fill_schema`)."""
     messages = fill_messages(card, question)
     prefix = fill_prefix(card) if keep_state else None
     chat_forced = getattr(model, "chat_forced", None)
     if forced and temperature == 0.0 and chat_forced is not None:
-        reply = chat_forced(messages, schema=card.schema_, max_tokens=token_budget(card), prefix=prefix)
+        reply = chat_forced(messages, schema=fill_schema(card, question, copy), max_tokens=token_budget(card),
+                            prefix=prefix)
         if reply is not None:
             args, error = _parse_fill(card, reply.text, reply.finish_reason)
             return Filled(arguments=args, error=error, usage=reply.usage, raw=reply.text)

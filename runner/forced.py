@@ -8,7 +8,9 @@ with the values and the choices the schema leaves open (another list item or the
 
 Only the schemas `shapecheck.infer_schema` writes are handled (objects whose keys are all required and closed,
 arrays, strings with an optional pattern of character classes, integers, numbers, booleans, null);
-`supported` says whether a schema is one of them. The accepted text is the part of the schema's llama.cpp
+`supported` says whether a schema is one of them. A string may also carry `x-copy-from` (this module's own
+keyword, set per question by `copy_schema`): its value must then be a piece of that text that starts and ends
+at word boundaries, so a code or a name is copied, never misspelt. The accepted text is the part of the schema's llama.cpp
 grammar that uses the demos' spacing, so a reply this cursor accepts also fits the grammar."""
 
 from __future__ import annotations
@@ -86,7 +88,7 @@ def supported(schema: Any) -> bool:
         return False
     kind = schema.get("type")
     allowed = {"type", "properties", "required", "additionalProperties", "items", "pattern", "description",
-               "title"}
+               "title", COPY}
     if set(schema) - allowed:
         return False
     if kind == "object":
@@ -97,8 +99,97 @@ def supported(schema: Any) -> bool:
     if kind == "array":
         return "items" in schema and supported(schema["items"])
     if kind == "string":
+        if COPY in schema:
+            return "pattern" not in schema and isinstance(schema[COPY], str)
         return "pattern" not in schema or pattern_steps(schema["pattern"]) is not None
-    return kind in ("integer", "number", "boolean", "null") and "pattern" not in schema
+    return kind in ("integer", "number", "boolean", "null") and "pattern" not in schema and COPY not in schema
+
+
+# ---- strings copied from the question ---------------------------------------------------------------------
+
+COPY = "x-copy-from"
+
+
+def _word_start(source: str, i: int) -> bool:
+    return i == 0 or not source[i - 1].isalnum() or not source[i].isalnum()
+
+
+def _piece_starts(source: str, piece: str) -> bool:
+    """Whether `piece` begins some piece of `source` that starts at a word boundary."""
+    i = source.find(piece)
+    while i != -1:
+        if _word_start(source, i):
+            return True
+        i = source.find(piece, i + 1)
+    return False
+
+
+def _piece_whole(source: str, piece: str) -> bool:
+    """Whether `piece` is a piece of `source` that starts and ends at word boundaries."""
+    i = source.find(piece)
+    while i != -1:
+        end = i + len(piece)
+        if _word_start(source, i) and (end == len(source) or not source[end].isalnum()
+                                       or not source[end - 1].isalnum()):
+            return True
+        i = source.find(piece, i + 1)
+    return False
+
+
+def copyable(value: Any, source: str) -> bool:
+    """A string value that a copy constraint allows: a whole-word piece of `source`, with nothing that JSON
+    would escape."""
+    return (isinstance(value, str) and value != "" and _piece_whole(source, value)
+            and not any(c in value for c in '"\\') and all(c >= " " for c in value))
+
+
+def copied_paths(schema: dict[str, Any], demos: list[tuple[str, Any]]) -> set[str]:
+    """The places of plain string values (paths as `shapecheck.value_paths` writes them) where every value
+    in every demo is copied whole from its question; at least two demos must show a value there."""
+    from .shapecheck import value_paths
+
+    places: set[str] = set()
+
+    def walk(node: dict[str, Any], path: str) -> None:
+        kind = node.get("type")
+        if kind == "string" and "pattern" not in node:
+            places.add(path)
+        elif kind == "object":
+            for key, sub in node.get("properties", {}).items():
+                walk(sub, f"{path}.{key}" if path else key)
+        elif kind == "array" and isinstance(node.get("items"), dict):
+            walk(node["items"], path + "[]")
+
+    walk(schema, "")
+    seen: dict[str, set[int]] = {}
+    bad: set[str] = set()
+    for n, (question, arguments) in enumerate(demos):
+        for path, value in value_paths(arguments):
+            if path not in places:
+                continue
+            seen.setdefault(path, set()).add(n)
+            if not copyable(value, question):
+                bad.add(path)
+    return {p for p, shown in seen.items() if len(shown) >= 2 and p not in bad}
+
+
+def copy_schema(schema: dict[str, Any], paths: set[str], question: str) -> dict[str, Any]:
+    """`schema` with the strings at `paths` constrained to whole-word pieces of `question`."""
+    if not paths:
+        return schema
+
+    def walk(node: dict[str, Any], path: str) -> dict[str, Any]:
+        kind = node.get("type")
+        if kind == "string" and path in paths:
+            return {**node, COPY: question}
+        if kind == "object":
+            return {**node, "properties": {k: walk(v, f"{path}.{k}" if path else k)
+                                           for k, v in node.get("properties", {}).items()}}
+        if kind == "array" and isinstance(node.get("items"), dict):
+            return {**node, "items": walk(node["items"], path + "[]")}
+        return node
+
+    return walk(schema, "")
 
 
 # ---- the cursor ---------------------------------------------------------------------------------------------
@@ -143,6 +234,8 @@ def _feed(stack: tuple[Frame, ...], ch: str) -> tuple[Frame, ...] | None:
         if t == "string":
             if ch != '"':
                 return None
+            if COPY in schema:
+                return rest + (("cpy", schema[COPY], ""),)
             steps = pattern_steps(schema["pattern"]) if "pattern" in schema else None
             return rest + (("str", steps, 0, 0, 0),)
         if t in ("integer", "number"):
@@ -171,6 +264,13 @@ def _feed(stack: tuple[Frame, ...], ch: str) -> tuple[Frame, ...] | None:
         return None
     if kind == "str":
         return _feed_string(top, rest, ch)
+    if kind == "cpy":
+        source, text = top[1], top[2]
+        if ch == '"':
+            return rest if text and _piece_whole(source, text) else None
+        if ch == "\\" or ch < " ":
+            return None
+        return rest + (("cpy", source, text + ch),) if _piece_starts(source, text + ch) else None
     if kind == "num":
         return _feed_number(top, rest, ch)
     raise AssertionError(f"unknown frame {kind}")
@@ -307,8 +407,8 @@ class Cursor:
         if not self.stack:
             return "other", None
         top = self.stack[-1]
-        if top[0] == "str":
-            return "string", top[1]
+        if top[0] in ("str", "cpy"):
+            return "string", None if top[0] == "cpy" else top[1]
         if top[0] == "num":
             return "number", top[1]
         if top[0] == "val" and top[1]["type"] in ("integer", "number"):
@@ -319,7 +419,7 @@ class Cursor:
 
     def in_string(self) -> bool:
         """Inside a string's characters (where any text may come, so multi-byte characters are possible)."""
-        return bool(self.stack) and self.stack[-1][0] == "str"
+        return bool(self.stack) and self.stack[-1][0] in ("str", "cpy")
 
 
 # Characters that stand for every class of text that may follow a forced span: where the span ends, the
@@ -333,4 +433,5 @@ def continuations(cursor: Cursor) -> list[str]:
     return [p for p in PROBES if cursor.feed(p) is not None]
 
 
-__all__ = ["Cursor", "supported", "pattern_steps", "continuations", "PROBES"]
+__all__ = ["Cursor", "supported", "pattern_steps", "continuations", "PROBES", "COPY", "copyable", "copied_paths",
+           "copy_schema"]

@@ -7,14 +7,17 @@ from __future__ import annotations
 
 import json
 import random
+from pathlib import Path
 
 import jsonschema
 import pytest
 
 from runner.guess import Drafter, scan_values, shape
+from runner import forced
 from runner.forced import Cursor, pattern_steps, supported
 from runner.shapecheck import infer_schema
 
+ROOT_DIR = Path(__file__).resolve().parent.parent
 BOATS = infer_schema([{"boats": [{"name": "Sandpiper", "start": 5, "period": 10}]}])
 DAYS = infer_schema([{"start": "2025-01-02", "end": "2025-02-03", "holidays": ["2025-01-05"]}])
 MIXED = infer_schema([{"labels": ["CHAIN-2"], "position": 3, "strict": True, "note": None, "rate": 1.5}])
@@ -183,3 +186,65 @@ def test_forced_fill_equals_the_sampled_fill_on_the_real_executor():
         assert forced.raw.strip() == sampled.raw.strip()
         assert forced.arguments == sampled.arguments is not None
         assert forced.usage.forced_tokens > forced.usage.completion_tokens / 2
+
+
+# ---- strings copied from the question --------------------------------------------------------------------
+
+CODE_CARD = infer_schema([{"code": "X", "boat": "Y", "count": 1}])
+CODE_Q = "Is box GEAU6884929 for the Fulmar, 12 crates, ready? (not the Fulmar-Two)"
+
+
+def pieces(text: str) -> set[str]:
+    """Every whole-word piece of `text`, by brute force: spans starting and ending at word boundaries."""
+    import re
+
+    starts = [m.start() for m in re.finditer(r"\b\w|\W", text)]
+    ends = [m.end() for m in re.finditer(r"\w\b|\W", text)]
+    return {text[i:j] for i in starts for j in ends if j > i}
+
+
+@pytest.mark.parametrize("value", ["GEAU6884929", "Fulmar", "the Fulmar", "Fulmar-Two", "12 crates", "?", "GEAU",
+                                   "GAEAU6884929", "EAU6884929", "GEAU688", "Fulma", "Puffin", "ready? (n"])
+def test_a_copied_string_is_a_whole_word_piece_of_the_question(value):
+    schema = forced.copy_schema(CODE_CARD, {"code"}, CODE_Q)
+    reply = json.dumps({"code": value, "boat": "anything", "count": 3})
+    accepted = accepts(schema, reply)
+    assert accepted == (value in pieces(CODE_Q))  # brute force over every span is the reference
+    assert accepted == forced.copyable(value, CODE_Q)
+    jsonschema.validate(json.loads(reply), CODE_CARD)  # a held string still fits the card's own schema
+
+
+def test_held_places_are_those_every_demo_copies_whole():
+    schema = infer_schema([{"code": "A", "boats": [{"name": "B", "note": "C"}], "asked": "D"}])
+    demos = [("Code GEAU6884929: the Tern (late) and the Auk (on time). Which first?",
+              {"code": "GEAU6884929", "boats": [{"name": "Tern", "note": "late"}, {"name": "Auk", "note": "on time"}],
+               "asked": "first"}),
+             ("Code MSCU1234565 for the Smew, held. Which first?",
+              {"code": "MSCU1234565", "boats": [{"name": "Smew", "note": "held"}], "asked": "earliest"})]
+    assert forced.copied_paths(schema, demos) == {"code", "boats[].name", "boats[].note"}  # "earliest" is not copied
+    assert forced.copied_paths(schema, demos[:1]) == set()  # one demo is not enough to tell
+    held = forced.copy_schema(schema, {"boats[].name"}, "q")
+    assert held["properties"]["boats"]["items"]["properties"]["name"] == {"type": "string", forced.COPY: "q"}
+    assert supported(held) and forced.copy_schema(schema, set(), "q") is schema
+    # strings JSON would escape are never held
+    assert not forced.copyable('say "hi"', 'we say "hi"') and not forced.copyable("a\\b", "a\\b")
+
+
+@pytest.mark.models
+def test_real_executor_fill_with_copied_strings_copies_codes_whole():
+    """On the container family's test tasks the held fill writes every code as a whole piece of its question
+    (bench/copy_fill.py compares answers right with and without the hold)."""
+    from conftest import need_models
+    from runner import models, settings
+    from runner.execute import fill_arguments
+    from runner.llm import LocalModel
+    from bench.handmade import handmade_tool
+    from bench.copy_fill import misspelt
+
+    need_models()
+    model = LocalModel(models.for_role(settings.load_registry(), "executor"), n_threads=1).load()
+    tool = handmade_tool("container_codes")
+    tasks = [json.loads(line) for line in (ROOT_DIR / "samples/container_codes/test.jsonl").read_text().splitlines()[:8]]
+    for t in tasks:
+        held = fill_arguments(model, tool.card, t["question"], seed=0, copy=True)
+        assert held.arguments is not None and not misspelt(held.arguments, t["question"]), held.raw
