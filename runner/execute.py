@@ -67,8 +67,8 @@ def schema_problem(schema: dict[str, Any], arguments: Any) -> str | None:
 # the forced path handles is one pass of `LocalModel.chat_forced`: the spans the schema forces (keys, quotes,
 # separators, closing brackets) and a draft of the values guessed from the question are evaluated in batches,
 # and at every guessed place the model's own best fitting token is kept; plain strings that every demo copies
-# whole from its question are held to whole-word pieces of the question (`fill_schema`). Its reply is the free greedy reply
-# when that fits the schema and the grammar's reply otherwise (bench/forced_fill_bench.py compares them on the
+# whole from its question are held to whole-word pieces of the question (`fill_schema`). Its reply is the free
+# greedy reply when that fits the schema and the grammar's reply otherwise (bench/forced_fill_bench.py compares them on the
 # families' test tasks; bench/split_cost.py measures the CPU per task against builder-direct).
 # Otherwise (a retry at a temperature, a model or schema the forced path does not handle) the fill is asked
 # free, checked with jsonschema, and asked again under the schema's grammar only when it does not fit; a tool

@@ -10,8 +10,8 @@ Only the schemas `shapecheck.infer_schema` writes are handled (objects whose key
 arrays, strings with an optional pattern of character classes, integers, numbers, booleans, null);
 `supported` says whether a schema is one of them. A string may also carry `x-copy-from` (this module's own
 keyword, set per question by `copy_schema`): its value must then be a piece of that text that starts and ends
-at word boundaries, so a code or a name is copied, never misspelt. The accepted text is the part of the schema's llama.cpp
-grammar that uses the demos' spacing, so a reply this cursor accepts also fits the grammar."""
+at word boundaries, so a code or a name is copied, never misspelt. The accepted text is the part of the
+schema's llama.cpp grammar that uses the demos' spacing, so a reply this cursor accepts also fits the grammar."""
 
 from __future__ import annotations
 
@@ -114,22 +114,13 @@ def _word_start(source: str, i: int) -> bool:
     return i == 0 or not source[i - 1].isalnum() or not source[i].isalnum()
 
 
-def _piece_starts(source: str, piece: str) -> bool:
-    """Whether `piece` begins some piece of `source` that starts at a word boundary."""
-    i = source.find(piece)
-    while i != -1:
-        if _word_start(source, i):
-            return True
-        i = source.find(piece, i + 1)
-    return False
-
-
-def _piece_whole(source: str, piece: str) -> bool:
-    """Whether `piece` is a piece of `source` that starts and ends at word boundaries."""
+def _piece(source: str, piece: str, whole: bool) -> bool:
+    """Whether `piece` is found in `source` starting at a word boundary and, when `whole`, also ending at one
+    (without `whole`: it may still grow into such a piece)."""
     i = source.find(piece)
     while i != -1:
         end = i + len(piece)
-        if _word_start(source, i) and (end == len(source) or not source[end].isalnum()
+        if _word_start(source, i) and (not whole or end == len(source) or not source[end].isalnum()
                                        or not source[end - 1].isalnum()):
             return True
         i = source.find(piece, i + 1)
@@ -139,7 +130,7 @@ def _piece_whole(source: str, piece: str) -> bool:
 def copyable(value: Any, source: str) -> bool:
     """A string value that a copy constraint allows: a whole-word piece of `source`, with nothing that JSON
     would escape."""
-    return (isinstance(value, str) and value != "" and _piece_whole(source, value)
+    return (isinstance(value, str) and value != "" and _piece(source, value, whole=True)
             and not any(c in value for c in '"\\') and all(c >= " " for c in value))
 
 
@@ -267,10 +258,10 @@ def _feed(stack: tuple[Frame, ...], ch: str) -> tuple[Frame, ...] | None:
     if kind == "cpy":
         source, text = top[1], top[2]
         if ch == '"':
-            return rest if text and _piece_whole(source, text) else None
+            return rest if text and _piece(source, text, whole=True) else None
         if ch == "\\" or ch < " ":
             return None
-        return rest + (("cpy", source, text + ch),) if _piece_starts(source, text + ch) else None
+        return rest + (("cpy", source, text + ch),) if _piece(source, text + ch, whole=False) else None
     if kind == "num":
         return _feed_number(top, rest, ch)
     raise AssertionError(f"unknown frame {kind}")
